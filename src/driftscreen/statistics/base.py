@@ -1,0 +1,49 @@
+"""The interface every neutrality statistic implements.
+
+A statistic maps a batch of count tables that share one design, together with the
+neutral null fitted to each of them, to one number per table. The same function is
+applied to the observed data (a batch of one) and to every bootstrap replicate, so the
+calibration compares like with like.
+"""
+
+from __future__ import annotations
+
+from typing import Literal, Protocol, runtime_checkable
+
+import numpy as np
+
+from driftscreen.dataset import Design
+from driftscreen.neutral.model import NullFit
+
+Alternative = Literal["greater", "two-sided"]
+
+
+@runtime_checkable
+class Statistic(Protocol):
+    """A test statistic of neutrality.
+
+    Attributes
+    ----------
+    name:
+        Stable identifier used in every output (``results.tsv``, JSON, report).
+    needs_time:
+        True if the statistic needs a time series (it is skipped for snapshots).
+    alternative:
+        ``"greater"``: large values speak against neutrality; ``"two-sided"``:
+        departures from the null median in either direction do.
+    """
+
+    name: str
+    needs_time: bool
+    alternative: Alternative
+
+    def compute(self, counts: np.ndarray, design: Design, fit: NullFit,
+                rng: np.random.Generator) -> np.ndarray:
+        """Statistic for each table in ``counts`` (shape ``(R, T, K)``), shape ``(R,)``.
+
+        ``rng`` is created afresh from the same seed for every call, so any random
+        choice inside (e.g. random groupings of taxa) is identical for the observed
+        data and for every replicate. Must be vectorised over R (no Python loop over
+        replicates) and return finite values or NaN where undefined.
+        """
+        ...

@@ -1,0 +1,139 @@
+"""Result records of a neutrality test, in the style of scipy.stats hypothesis tests.
+
+A :class:`NeutralityResult` holds, per statistic, a :class:`StatisticResult` with
+``statistic``, ``pvalue`` and ``null_distribution`` (the bootstrap replicates), effect
+sizes, and the fitted null with bootstrap intervals. ``summary()`` renders the fixed-width
+plain-text report of :mod:`driftscreen.report.text`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from driftscreen.neutral.model import NeutralModel
+
+
+@dataclass(frozen=True)
+class StatisticResult:
+    """One calibrated statistic.
+
+    Attributes
+    ----------
+    name:
+        Stable identifier (e.g. ``"stationary_divergence"``, ``"combined"``).
+    statistic:
+        Observed value (NaN if undefined for this dataset).
+    pvalue:
+        Parametric-bootstrap p-value ``(1 + #replicates at least as extreme) / (B + 1)``
+        (Davison & Hinkley 1997, eq. 4.11); NaN if the statistic is undefined.
+    null_distribution:
+        The statistic on the B re-fitted neutral replicates (undefined ones dropped).
+    alternative:
+        ``"greater"`` or ``"two-sided"`` (distance from the null median).
+    note:
+        Plain text for the report (e.g. replicates where the statistic was undefined).
+    """
+
+    name: str
+    statistic: float
+    pvalue: float
+    null_distribution: np.ndarray
+    alternative: str
+    note: str = ""
+
+    @property
+    def null_mean(self) -> float:
+        return float(np.mean(self.null_distribution)) if self.null_distribution.size else np.nan
+
+    @property
+    def null_sd(self) -> float:
+        if self.null_distribution.size < 2:
+            return np.nan
+        return float(np.std(self.null_distribution, ddof=1))
+
+    @property
+    def null_median(self) -> float:
+        return float(np.median(self.null_distribution)) if self.null_distribution.size else np.nan
+
+    @property
+    def effect_size(self) -> float:
+        """Standardized effect size: (observed - null mean) / null standard deviation."""
+        sd = self.null_sd
+        if not np.isfinite(sd) or sd == 0:
+            return np.nan
+        return (self.statistic - self.null_mean) / sd
+
+    @property
+    def ratio_to_median(self) -> float:
+        """Observed value over the null median (NaN when the median is 0)."""
+        median = self.null_median
+        if not np.isfinite(median) or median == 0:
+            return np.nan
+        return self.statistic / median
+
+
+@dataclass(frozen=True)
+class ParameterEstimate:
+    """A fitted null parameter with its parametric-bootstrap 95% interval.
+
+    The interval is the basic bootstrap interval on the log scale (Davison & Hinkley 1997,
+    section 5.2): ``[estimate^2 / q(0.975), estimate^2 / q(0.025)]`` of the re-fitted
+    replicates, which stays positive and corrects the estimator's bias.
+    """
+
+    name: str
+    estimate: float
+    low: float
+    high: float
+    unit: str = ""
+
+
+@dataclass(frozen=True)
+class DatasetSummary:
+    """What the report needs to know about the dataset that was tested."""
+
+    name: str
+    n_samples: int
+    n_taxa: int
+    dropped_taxa: int
+    time_series: bool
+    span_days: float
+    depth_min: int
+    depth_median: float
+    depth_max: int
+    notes: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class NeutralityResult:
+    """Outcome of :func:`driftscreen.neutrality_test` for one dataset."""
+
+    dataset: DatasetSummary
+    model: NeutralModel
+    statistics: dict[str, StatisticResult]
+    parameters: dict[str, ParameterEstimate]
+    replicates: int
+    seed: int
+    notes: tuple[str, ...] = field(default=())
+
+    def __getitem__(self, name: str) -> StatisticResult:
+        return self.statistics[name]
+
+    @property
+    def pvalue(self) -> float:
+        """The combined p-value (Cauchy combination of all statistics)."""
+        return self.statistics["combined"].pvalue
+
+    @property
+    def pvalue_resolution(self) -> float:
+        """The smallest attainable p-value, 1 / (B + 1)."""
+        return 1.0 / (self.replicates + 1)
+
+    def summary(self) -> str:
+        """Fixed-width plain-text report for this dataset."""
+        from driftscreen.report.text import dataset_report
+
+        return dataset_report(self)

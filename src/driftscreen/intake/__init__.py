@@ -1,0 +1,15 @@
+"""Data intake: abundance tables and sample metadata into checked datasets.
+
+:func:`read_datasets` reads wide or long CSV/TSV tables (gzip allowed) of read counts
+or relative abundances, joins sample metadata, splits the samples into datasets,
+converts dates to days, aggregates taxa, and reports every input problem as one line
+naming the file, the place and the fix (:class:`driftscreen.errors.InputError`).
+:func:`write_tables` writes datasets in a form :func:`read_datasets` reads back.
+"""
+
+from __future__ import annotations
+
+from driftscreen.intake.reader import read_datasets
+from driftscreen.intake.writer import write_tables
+
+__all__ = ["read_datasets", "write_tables"]

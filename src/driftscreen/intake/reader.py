@@ -1,0 +1,345 @@
+"""``read_datasets``: from an abundance table (and metadata) to checked datasets."""
+
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+
+from driftscreen.dataset import Dataset, Design
+from driftscreen.errors import InputError
+from driftscreen.intake.abundance import (Converted, Depths, check_values, detect_abundance,
+                                          to_counts)
+from driftscreen.intake.counts import CountTable, is_long, read_long, read_wide
+from driftscreen.intake.metadata import (Metadata, Times, check_join, dataset_names, read_depths,
+                                         read_metadata, read_times)
+from driftscreen.intake.tables import (file_label, file_stem, plural, quoted_list,
+                                       read_text_table)
+from driftscreen.intake.taxonomy import (Rank, aggregate, aggregation_notes, lineage_grouping,
+                                         map_grouping, parse_rank)
+
+OTHER = "other"
+CHOICES = {
+    "layout": ("auto", "wide", "long"),
+    "orientation": ("auto", "taxa-rows", "taxa-columns"),
+    "abundance": ("auto", "counts", "fraction", "percent"),
+    "remainder": ("auto", "pool", "renormalise"),
+}
+
+
+@dataclass(frozen=True)
+class Columns:
+    """Metadata columns named by the ``*_by`` options (indices; ``None`` if not given)."""
+
+    datasets: tuple[int, ...] = ()
+    time: int | None = None
+    depth: int | None = None
+
+
+@dataclass(frozen=True)
+class Table:
+    """The whole counts table after conversion and aggregation (all samples).
+
+    Attributes
+    ----------
+    counts:
+        Integer reads, shape ``(samples, taxa)``.
+    samples, taxa:
+        Ids of rows and columns.
+    converted:
+        The conversion record (remainder shares for per-dataset notes).
+    notes, warnings:
+        Sentences that apply to every dataset.
+    """
+
+    counts: np.ndarray
+    samples: tuple[str, ...]
+    taxa: tuple[str, ...]
+    converted: Converted
+    notes: tuple[str, ...]
+    warnings: tuple[str, ...]
+
+
+def read_datasets(
+    counts: str | os.PathLike,
+    metadata: str | os.PathLike | None = None,
+    *,
+    layout: Literal["auto", "wide", "long"] = "auto",
+    orientation: Literal["auto", "taxa-rows", "taxa-columns"] = "auto",
+    sample_id: str | None = None,
+    dataset_by: Sequence[str] = (),
+    time_by: str | None = None,
+    depth_by: str | None = None,
+    depth: float | None = None,
+    abundance: Literal["auto", "counts", "fraction", "percent"] = "auto",
+    remainder: Literal["auto", "pool", "renormalise"] = "auto",
+    lineage: str | None = None,
+    rank: str | None = None,
+    taxon_map: str | os.PathLike | None = None,
+    min_samples: int = 3,
+    min_taxa: int = 2,
+) -> list[Dataset]:
+    """Read an abundance table and its metadata into checked datasets.
+
+    Parameters
+    ----------
+    counts:
+        Wide (taxa as rows or columns) or long (sample, taxon, count) CSV/TSV table,
+        optionally gzip-compressed; read counts or relative abundances.
+    metadata:
+        Sample metadata table joined on sample id (needed for the ``*_by`` options).
+    layout, orientation:
+        Table layout and, for wide tables, which axis holds taxa (``"auto"`` detects).
+    sample_id:
+        Metadata column with sample ids (default: the first column).
+    dataset_by:
+        Metadata columns whose value combinations define datasets.
+    time_by:
+        Metadata column with sampling times (days, or ISO dates -> days since the
+        dataset's first sample). Without it every dataset is a snapshot design.
+    depth_by, depth:
+        Per-sample depths (metadata column) or one depth, to convert relative data.
+    abundance:
+        ``"counts"``, ``"fraction"``, ``"percent"`` or ``"auto"`` (detect).
+    remainder:
+        For relative samples summing below 1: pool the rest as taxon ``other``
+        (``"auto"``, ``"pool"``) or ``"renormalise"``.
+    lineage, rank, taxon_map:
+        Aggregate taxa to ``rank`` using a lineage column, or to the groups of a
+        two-column taxon map file (whose groups are lineages when ``rank`` is given).
+    min_samples, min_taxa:
+        Smallest acceptable dataset (taxa counted after dropping all-zero taxa).
+
+    Returns
+    -------
+    list of Dataset
+        One per dataset, sorted by name; samples of a time series ordered by time.
+
+    Raises
+    ------
+    InputError
+        For any problem in the files or options, as one line naming file, place and fix.
+    """
+    check_arguments(layout, orientation, abundance, remainder, min_samples, min_taxa)
+    dataset_by = (dataset_by,) if isinstance(dataset_by, str) else tuple(dict.fromkeys(dataset_by))
+    check_options(metadata, sample_id, dataset_by, time_by, depth_by, depth, lineage, rank,
+                  taxon_map)
+    parsed_rank = None if rank is None else parse_rank(rank)
+    meta = None if metadata is None else read_metadata(file_label(metadata), sample_id)
+    columns = metadata_columns(meta, dataset_by, time_by, depth_by)
+    raw = read_count_table(counts, layout, orientation, lineage, meta)
+    table = prepare_table(raw, meta, columns.depth, depth, abundance, remainder, lineage,
+                          parsed_rank, taxon_map)
+    if meta is not None and columns.datasets:
+        names, where = dataset_names(meta, columns.datasets, table.samples), meta.label
+    else:
+        names, where = [file_stem(counts)] * len(table.samples), raw.label
+    times = None
+    if meta is not None and columns.time is not None:
+        times = read_times(meta, columns.time, table.samples)
+    source = tuple(file_label(p) for p in (counts, metadata, taxon_map) if p is not None)
+    limits = (min_samples, min_taxa)
+    return [build_dataset(name, np.flatnonzero(np.array(names) == name), table, times,
+                          source, limits, where)
+            for name in sorted(set(names))]
+
+
+def check_arguments(layout: str, orientation: str, abundance: str, remainder: str,
+                    min_samples: int, min_taxa: int) -> None:
+    """Programming errors in the call (not user input)."""
+    for option, value in (("layout", layout), ("orientation", orientation),
+                          ("abundance", abundance), ("remainder", remainder)):
+        if value not in CHOICES[option]:
+            raise ValueError(f"{option} must be one of {CHOICES[option]}, got {value!r}")
+    if min_samples < 1 or min_taxa < 1:
+        raise ValueError("min_samples and min_taxa must be at least 1")
+
+
+def check_options(metadata: object, sample_id: str | None, dataset_by: Sequence[str],
+                  time_by: str | None, depth_by: str | None, depth: float | None,
+                  lineage: str | None, rank: str | None, taxon_map: object) -> None:
+    """Option combinations that cannot work, reported before any file is read."""
+    if metadata is None:
+        for option, value in (("--sample-id", sample_id), ("--dataset-by", dataset_by or None),
+                              ("--time-by", time_by), ("--depth-by", depth_by)):
+            if value is not None:
+                raise InputError("needs a metadata table", file=f"option {option}",
+                                 fix="give --metadata FILE")
+    if depth is not None:
+        check_depth_number(depth)
+        if depth_by is not None:
+            raise InputError("--depth and --depth-by are both given", file="option --depth",
+                             fix="give one of them")
+    if lineage is not None and taxon_map is not None:
+        raise InputError("--lineage and --taxon-map are both given", file="option --lineage",
+                         fix="give one of them")
+    if rank is not None and lineage is None and taxon_map is None:
+        raise InputError("needs lineages to aggregate taxa", file="option --rank",
+                         fix="give --lineage COLUMN or --taxon-map FILE")
+
+
+def check_depth_number(depth: object) -> None:
+    """One depth for all samples: a finite number > 0."""
+    try:
+        value = float(depth)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        raise InputError(f"non-numeric depth '{depth}'", file="option --depth",
+                         fix="give the number of reads per sample, e.g. --depth 10000") from None
+    if not (math.isfinite(value) and value > 0):
+        raise InputError(f"depth {depth} is not a positive number", file="option --depth",
+                         fix="give the number of reads per sample, e.g. --depth 10000")
+
+
+def metadata_columns(meta: Metadata | None, dataset_by: Sequence[str], time_by: str | None,
+                     depth_by: str | None) -> Columns:
+    """Column indices of the ``*_by`` options; a missing column is an input error."""
+    if meta is None:
+        return Columns()
+    return Columns(
+        datasets=tuple(meta.column(name, "--dataset-by") for name in dataset_by),
+        time=None if time_by is None else meta.column(time_by, "--time-by"),
+        depth=None if depth_by is None else meta.column(depth_by, "--depth-by"))
+
+
+def read_count_table(counts: str | os.PathLike, layout: str, orientation: str,
+                     lineage: str | None, meta: Metadata | None) -> CountTable:
+    """Parse the counts file in its layout and check it against the metadata ids."""
+    text = read_text_table(counts)
+    if layout == "long" or (layout == "auto" and is_long(text, lineage)):
+        if orientation != "auto":
+            raise InputError(f"applies to wide tables only, but {text.label} is a long table",
+                             file="option --orientation", fix="drop it, or give --layout wide")
+        return read_long(text, lineage)
+    return read_wide(text, orientation, lineage, None if meta is None else meta.ids())
+
+
+def prepare_table(raw: CountTable, meta: Metadata | None, depth_column: int | None,
+                  depth: float | None, abundance: str, remainder: str, lineage: str | None,
+                  rank: Rank | None, taxon_map: str | os.PathLike | None) -> Table:
+    """Join, check, convert to counts, aggregate and add the pooled remainder."""
+    warnings = [] if meta is None else check_join(meta, raw.samples, raw.label)
+    check_values(raw, abundance)
+    kind, notes = detect_abundance(raw, abundance)
+    depths = given_depths(meta, depth_column, depth, raw.samples)
+    converted = to_counts(raw, kind, remainder, depths)
+    notes = raw.notes + notes + converted.notes
+    counts, taxa = converted.counts, raw.taxa
+    if rank is not None or taxon_map is not None:
+        grouping = (map_grouping(file_label(taxon_map), taxa, rank) if taxon_map is not None
+                    else lineage_grouping(raw.lineages, rank, lineage))
+        counts, names, n_unassigned = aggregate(counts, grouping)
+        notes += aggregation_notes(len(taxa), names, n_unassigned, grouping)
+        taxa = names
+    elif lineage is not None:
+        notes.append(f"column '{lineage}' holds lineages; taxa were not aggregated (no --rank)")
+    counts, taxa, other_notes = add_remainder(counts, taxa, converted.other)
+    return Table(counts, raw.samples, tuple(taxa), converted,
+                 tuple(notes + other_notes), tuple(warnings + converted.warnings))
+
+
+def given_depths(meta: Metadata | None, column: int | None, depth: float | None,
+                 samples: Sequence[str]) -> Depths | None:
+    """Depths from the metadata column or the one number, if either is given."""
+    if column is not None and meta is not None:
+        return Depths(read_depths(meta, column, samples),
+                      f"column '{meta.table.header[column]}' of {meta.label}", single=False)
+    if depth is not None:
+        return Depths(np.full(len(samples), float(depth)), f"--depth {float(depth):g}",
+                      single=True)
+    return None
+
+
+def add_remainder(counts: np.ndarray, taxa: Sequence[str], other: np.ndarray | None
+                  ) -> tuple[np.ndarray, list[str], list[str]]:
+    """Append the pooled remainder as taxon ``other`` (or add it to an existing one)."""
+    taxa = list(taxa)
+    if other is None:
+        return counts, taxa, []
+    if OTHER in taxa:
+        column = taxa.index(OTHER)
+        counts = counts.copy()
+        counts[:, column] += other
+        return counts, taxa, [f"the unlisted remainder was added to the existing "
+                                      f"taxon '{OTHER}'"]
+    return np.column_stack([counts, other]), taxa + [OTHER], []
+
+
+def build_dataset(name: str, members: np.ndarray, table: Table, times: Times | None,
+                  source: tuple[str, ...], limits: tuple[int, int], where: str) -> Dataset:
+    """One dataset: its samples (time-ordered), taxa with reads, design and notes."""
+    min_samples, min_taxa = limits
+    days = None
+    if times is not None:
+        days_all = times.days(members)
+        order = np.argsort(days_all, kind="stable")
+        members, days = members[order], days_all[order]
+        check_distinct_times(name, members, days, table, times)
+    if members.size < min_samples:
+        raise InputError(f"only {plural(int(members.size), 'sample', 'samples')}, at least "
+                         f"{min_samples} are needed",
+                         file=where, place=f"dataset '{name}'",
+                         fix="add samples, or define larger datasets (fewer --dataset-by columns)")
+    counts = table.counts[members]
+    present = counts.sum(axis=0) > 0
+    dropped = int((~present).sum())
+    if present.sum() < min_taxa:
+        raise InputError(f"only {plural(int(present.sum()), 'taxon', 'taxa')} with reads, at "
+                         f"least {min_taxa} are needed", file=where, place=f"dataset '{name}'",
+                         fix="check the table, or leave this dataset out")
+    notes = list(table.notes) + remainder_notes(table, members)
+    if times is not None and times.is_date:
+        notes.append(f"converted the dates in column '{times.column}' to days since the "
+                     f"dataset's first sample ({times.text[members[0]]})")
+    notes += [f"dropped {dropped} taxa with no reads"] if dropped else []
+    kept = counts[:, present]
+    taxa = tuple(t for t, keep in zip(table.taxa, present) if keep)
+    samples = tuple(table.samples[k] for k in members)
+    depths = kept.sum(axis=1)
+    return Dataset(name=name, counts=kept, taxa=taxa, samples=samples,
+                   design=Design(depths=depths, times=days), notes=tuple(notes),
+                   warnings=table.warnings + single_read_warning(samples, depths),
+                   dropped_taxa=dropped, source=source)
+
+
+def single_read_warning(samples: Sequence[str], depths: np.ndarray) -> tuple[str, ...]:
+    """Samples with one read carry no information on sampling variance (n - 1 = 0)."""
+    single = [s for s, n in zip(samples, depths) if n < 2]
+    if not single:
+        return ()
+    return (f"{plural(len(single), 'sample has', 'samples have')} a single read "
+            f"({quoted_list(single, 3)}); consider removing them",)
+
+
+def check_distinct_times(name: str, members: np.ndarray, days: np.ndarray, table: Table,
+                         times: Times) -> None:
+    """Two samples of one time series may not share a time."""
+    same = np.flatnonzero(np.diff(days) == 0)
+    if same.size:
+        first, second = int(members[same[0]]), int(members[same[0] + 1])
+        raise InputError(f"samples '{table.samples[first]}' and '{table.samples[second]}' have "
+                         f"the same time '{times.text[second]}'", file=times.label,
+                         place=f"dataset '{name}'",
+                         fix="give each sample of a time series its own time, or split the "
+                             "data into more datasets with --dataset-by")
+
+
+def remainder_notes(table: Table, members: np.ndarray) -> list[str]:
+    """Per-dataset sentence about pooled or rescaled remainders."""
+    converted = table.converted
+    if converted.listed_share is None:
+        return []
+    if converted.rescaled:
+        share = float(np.mean(converted.listed_share[members]))
+        return [f"rescaled the listed abundances of each sample to sum to 1 (they summed to "
+                f"{share:.1%} on average)"]
+    if converted.other is None:
+        return []
+    share = float(np.mean(converted.other[members] / table.counts[members].sum(axis=1)))
+    if share == 0:
+        return []
+    return [f"pooled the unlisted remainder of each sample as taxon '{OTHER}' "
+            f"(mean {share:.1%} of reads)"]

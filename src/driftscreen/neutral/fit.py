@@ -1,0 +1,378 @@
+"""Moment estimators of the neutral null: composition p, immigration theta, relaxation rate.
+
+Implements section 5 of the design note on the neutral null (Wright-Fisher diffusion
+with immigration observed through multinomial sequencing; moments from Ewens 2004,
+*Mathematical Population Genetics I*, ch. 5). With depths n_t, W = sum_t n_t and pooled
+read weights w_t = n_t / W:
+
+* ``p`` is the pooled read fraction sum_t N_it / W (unbiased at stationarity).
+* Snapshots (independent samples): theta from the sampling-corrected ratio of the
+  pooled across-sample variance Q to the heterozygosity H = 1 - sum_i p_i^2.
+* Time series: the pooled, sampling-corrected variogram over all pairs s < t,
+
+      D_st = sum_i [(Y_is - Y_it)^2 - Y_is(1 - Y_is)/(n_s - 1) - Y_it(1 - Y_it)/(n_t - 1)],
+
+  has E[D_st] = 2 A (1 - exp(-rate |t_s - t_t|)) with A = v Pi, v = 1/(1 + theta),
+  Pi = sum_i p_i (1 - p_i). (A, rate) are fitted by ordinary least squares over all pairs
+  (every pair weighs the same), profiling the closed-form A over log rate on a grid with
+  parabolic refinement; then Pi from H and theta = 1/v - 1.
+
+Everything is vectorised over a batch of replicate tables that share one design, and
+processed in sub-batches to bound memory.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from driftscreen.dataset import Design
+from driftscreen.errors import InputError
+from driftscreen.neutral.model import NeutralModel, NullFit
+
+#: v = 1/(1 + theta) is kept in [V_MIN, V_MAX], so theta stays finite and positive.
+V_MIN = 1e-9
+V_MAX = 1.0 - 1e-9
+#: Rate bounds: rate * span >= RATE_MIN_SPAN (below, the variogram is a straight line over the
+#: whole series and only the product A * rate is identified); rate * shortest lag <=
+#: RATE_MAX_LAG (above, exp(-rate * lag) < 5e-5 at every lag: the variogram is flat).
+RATE_MIN_SPAN = 0.01
+RATE_MAX_LAG = 10.0
+#: Below this rate * span the plateau of the variogram is barely reached (design note, section 5).
+WEAK_RATE_SPAN = 5.0
+#: Spacing of the log-rate grid (natural-log units) before parabolic refinement.
+LOG_RATE_STEP = 0.1
+#: Working memory per sub-batch of replicates, in bytes.
+SUB_BATCH_BYTES = 96 * 2**20
+
+
+@dataclass(frozen=True)
+class _PairDesign:
+    """Design-only quantities of the variogram fit.
+
+    Usable samples have depth >= 2 (the sampling correction divides by n - 1). Pairs are
+    grouped by distinct lag: the least-squares sums over pairs only need, per lag, the sum
+    of D over the pairs with that lag, which is exact and collapses regular designs.
+    """
+
+    first: np.ndarray        # (P,) sample index s of each usable pair, sorted by lag
+    second: np.ndarray       # (P,) sample index t > s
+    group_starts: np.ndarray  # (U,) start of each distinct-lag group in the sorted pairs
+    lags: np.ndarray         # (U,) distinct lags in days
+    pair_counts: np.ndarray  # (U,) number of pairs per distinct lag
+    log_grid: np.ndarray     # (G,) grid of log rate
+    basis: np.ndarray        # (G, U) 1 - exp(-rate_g * lag_u)
+    basis_norm: np.ndarray   # (G,) sum over pairs of basis^2
+
+    @property
+    def identifiable(self) -> bool:
+        """A and the rate need at least two distinct lags."""
+        return self.lags.size >= 2
+
+
+def rate_bounds(design: Design) -> tuple[float, float]:
+    """Search range of the rate (per day) for a time-series design.
+
+    ``[RATE_MIN_SPAN / span, RATE_MAX_LAG / shortest lag]`` over the samples usable in the
+    variogram (depth >= 2; all samples if fewer than two are usable): outside it the
+    variogram is either linear over the whole span or flat at every lag, and the rate is
+    not identified.
+    """
+    if design.times is None or design.n_samples < 2:
+        raise ValueError("rate bounds need a time-series design with at least two samples")
+    times = design.times[design.depths >= 2]
+    if times.size < 2:
+        times = design.times
+    return RATE_MIN_SPAN / float(times[-1] - times[0]), RATE_MAX_LAG / float(np.diff(times).min())
+
+
+def pooled_fractions(counts: np.ndarray, design: Design) -> np.ndarray:
+    """p-hat: pooled read fraction sum_t N_it / W of each taxon, shape ``(R, K)``.
+
+    Unbiased for p at stationarity (design note, section 5). Taxa without reads get 0.
+    """
+    return counts.sum(axis=1, dtype=np.float64) / float(design.depths.sum())
+
+
+def variogram(counts: np.ndarray, design: Design) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pooled sampling-corrected variogram D_st over all usable pairs s < t.
+
+    Parameters
+    ----------
+    counts:
+        Shape ``(R, T, K)``; rows sum to ``design.depths``.
+    design:
+        A time-series design.
+
+    Returns
+    -------
+    first, second, d:
+        Sample indices of each pair ``(P,)`` and D_st, shape ``(R, P)``. At stationarity
+        E[D_st] = 2 v Pi (1 - exp(-rate |t_s - t_t|)) (design note, section 5). Samples
+        with depth 1 are left out (the correction divides by n - 1).
+    """
+    first, second = _usable_pairs(design)
+    gram, own = _gram_terms(counts, design)
+    return first, second, 2.0 * _half_variogram(gram, own, first, second)
+
+
+def fit_batch(counts: np.ndarray, design: Design) -> NullFit:
+    """Fit (p, theta, rate) to each table of a batch sharing one design; vectorised over R.
+
+    Parameters
+    ----------
+    counts:
+        Integer counts, shape ``(R, T, K)``; row ``t`` of every table sums to
+        ``design.depths[t]``. Taxa absent from a table get p = 0.
+    design:
+        Depths and (for a time series) times shared by all tables.
+
+    Returns
+    -------
+    NullFit
+        ``theta`` from v-hat clipped into [1e-9, 1 - 1e-9] (``clipped`` marks where that
+        happened); ``rate`` per day for a time series (None for a snapshot). When the
+        series has fewer than two distinct usable lags the rate is set to its upper bound
+        (samples treated as independent).
+    """
+    counts = np.asarray(counts)
+    if counts.ndim != 3 or counts.shape[1] != design.n_samples:
+        raise ValueError("counts must have shape (R, T, K) with T = design.n_samples")
+    if design.n_samples < 2:
+        raise InputError("a dataset with one sample cannot be fitted",
+                         fix="provide at least two samples per dataset")
+    pairs = _pair_design(design) if design.is_time_series else None
+    p = pooled_fractions(counts, design)
+    v = np.empty(counts.shape[0])
+    rate = np.empty(counts.shape[0]) if pairs is not None else None
+    step = _sub_batch_size(counts.shape, pairs)
+    for start in range(0, counts.shape[0], step):
+        part = slice(start, start + step)
+        if pairs is None:
+            v[part] = _snapshot_v(counts[part], p[part], design)
+        else:
+            v[part], rate[part] = _series_v_and_rate(counts[part], p[part], design, pairs)
+    clipped = ~((v >= V_MIN) & (v <= V_MAX))
+    v = np.clip(np.nan_to_num(v, nan=V_MIN), V_MIN, V_MAX)
+    return NullFit(p=p, theta=1.0 / v - 1.0, rate=rate, clipped=clipped)
+
+
+def fit(counts: np.ndarray, design: Design) -> NeutralModel:
+    """Fit one table ``(T, K)``: :func:`fit_batch` on a batch of one, plus plain-text flags.
+
+    Flags: theta clipped; rate at a bound of its search range; rate weakly identified
+    (rate * span < 5, design note section 5); series too short for a rate; samples with a
+    single read left out of the variogram.
+    """
+    counts = np.asarray(counts)
+    if counts.ndim != 2:
+        raise ValueError("counts must have shape (T, K)")
+    result = fit_batch(counts[None], design)
+    rate = None if result.rate is None else float(result.rate[0])
+    flags = _fit_flags(design, rate, bool(result.clipped[0]))
+    return NeutralModel(result.p[0], float(result.theta[0]), rate, flags)
+
+
+def correlation_weight(rate: np.ndarray, design: Design) -> np.ndarray:
+    """R_w = sum_{s,t} w_s w_t exp(-rate |t_s - t_t|) for each rate, shape like ``rate``.
+
+    Var(p-hat_i) = pi_i [v R_w + (1 - v)/W]; 1/R_w is the effective number of independent
+    samples (design note, section 5). Uses the recursion over sorted times
+    S_t = exp(-rate dt_t) (S_{t-1} + w_{t-1}), so the cost is O(T) per rate.
+    """
+    rate = np.asarray(rate, dtype=np.float64)
+    w = _weights(design)
+    carried = np.zeros_like(rate)
+    cross = np.zeros_like(rate)
+    for t, gap in enumerate(design.intervals, start=1):
+        carried = np.exp(-rate * gap) * (carried + w[t - 1])
+        cross += w[t] * carried
+    return float(np.sum(w**2)) + 2.0 * cross
+
+
+# ---------------------------------------------------------------- snapshot
+
+
+def _snapshot_v(counts: np.ndarray, p: np.ndarray, design: Design) -> np.ndarray:
+    """v-hat from Q/H with R_w = sum_t w_t^2 (independent samples; design note, section 5).
+
+    Solves E[Q]/E[H] = r with E[Q] = Pi[v(1 - R_w) + (1 - v)(S1 - S2)] and
+    E[H] = Pi[1 - v R_w - (1 - v) S2], S1 = sum_t w_t/n_t, S2 = sum_t w_t^2/n_t.
+    """
+    w = _weights(design)
+    depths = design.depths.astype(np.float64)
+    proportions = counts / depths[:, None]
+    spread = np.einsum("t,rt->r", w, np.sum((proportions - p[:, None, :]) ** 2, axis=2))
+    hetero = 1.0 - np.sum(p**2, axis=1)
+    s1, s2 = float(np.sum(w / depths)), float(np.sum(w**2 / depths))
+    r_w = float(np.sum(w**2))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = spread / hetero
+        return (r * (1.0 - s2) - (s1 - s2)) / (1.0 - r_w + r * r_w - r * s2 - (s1 - s2))
+
+
+# ---------------------------------------------------------------- time series
+
+
+def _series_v_and_rate(counts: np.ndarray, p: np.ndarray, design: Design,
+                       pairs: _PairDesign) -> tuple[np.ndarray, np.ndarray]:
+    """v-hat and rate-hat from the variogram fit and H (design note, section 5).
+
+    Pi-hat = [H + A (R_w - S2)] / (1 - S2) from E[H] = Pi(1 - S2) - A(R_w - S2); v = A / Pi.
+    """
+    gram, own = _gram_terms(counts, design)
+    half = _half_variogram(gram, own, pairs.first, pairs.second)
+    del gram
+    lag_sums = _sum_by_lag(half, pairs)
+    rate = _profile_rate(lag_sums, pairs)
+    plateau = _plateau(lag_sums, rate, pairs)
+    s2 = float(np.sum(_weights(design) ** 2 / design.depths))
+    hetero = 1.0 - np.sum(p**2, axis=1)
+    total_variance = (hetero + plateau * (correlation_weight(rate, design) - s2)) / (1.0 - s2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return plateau / total_variance, rate
+
+
+def _gram_terms(counts: np.ndarray, design: Design) -> tuple[np.ndarray, np.ndarray]:
+    """Gram matrices Y Y^T ``(R, T, T)`` and sum_i Y_it^2 - Y_it(1 - Y_it)/(n_t - 1) ``(R, T)``.
+
+    The second term is g_tt minus the multinomial correction; samples of depth 1 get NaN
+    there and are never used.
+    """
+    depths = design.depths.astype(np.float64)
+    proportions = counts / depths[:, None]
+    gram = np.matmul(proportions, proportions.transpose(0, 2, 1))
+    squares = np.einsum("rtt->rt", gram)
+    totals = proportions.sum(axis=2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        own = squares - (totals - squares) / (depths - 1.0)
+    return gram, own
+
+
+def _half_variogram(gram: np.ndarray, own: np.ndarray, first: np.ndarray,
+                    second: np.ndarray) -> np.ndarray:
+    """D_st / 2 for the given pairs, shape ``(R, P)``."""
+    return 0.5 * (own[:, first] + own[:, second]) - gram[:, first, second]
+
+
+def _sum_by_lag(half: np.ndarray, pairs: _PairDesign) -> np.ndarray:
+    """Sum of D/2 over the pairs of each distinct lag, shape ``(R, U)``."""
+    if pairs.group_starts.size == pairs.first.size:
+        return half
+    return np.add.reduceat(half, pairs.group_starts, axis=1)
+
+
+def _profile_rate(lag_sums: np.ndarray, pairs: _PairDesign) -> np.ndarray:
+    """Least-squares rate: maximise max(d.f, 0)^2 / f.f over the log-rate grid.
+
+    For fixed rate the best A >= 0 is max(d.f, 0)/f.f and the residual sum of squares drops
+    by max(d.f, 0)^2/f.f. The maximum on the grid is refined by the vertex of the parabola
+    through it and its two neighbours; a maximum on the edge stays at the bound. With no
+    positive d.f (no drift variance at all) the rate is set to the upper bound.
+    """
+    upper = np.exp(pairs.log_grid[-1])
+    if not pairs.identifiable:
+        return np.full(lag_sums.shape[0], upper)
+    gain = np.maximum(lag_sums @ pairs.basis.T, 0.0) ** 2 / pairs.basis_norm
+    best = np.argmax(gain, axis=1)
+    inner = np.clip(best, 1, gain.shape[1] - 2)
+    rows = np.arange(gain.shape[0])
+    left, mid, right = gain[rows, inner - 1], gain[rows, inner], gain[rows, inner + 1]
+    curvature = left - 2.0 * mid + right
+    with np.errstate(divide="ignore", invalid="ignore"):
+        shift = np.where(curvature < 0, 0.5 * (left - right) / curvature, 0.0)
+    step = pairs.log_grid[1] - pairs.log_grid[0]
+    log_rate = pairs.log_grid[inner] + np.clip(shift, -0.5, 0.5) * step
+    on_edge = (best == 0) | (best == gain.shape[1] - 1)
+    log_rate = np.where(on_edge, pairs.log_grid[best], log_rate)
+    return np.where(gain[rows, best] > 0, np.exp(log_rate), upper)
+
+
+def _plateau(lag_sums: np.ndarray, rate: np.ndarray, pairs: _PairDesign) -> np.ndarray:
+    """A-hat = max(d.f, 0) / f.f at each replicate's own rate (exact, not interpolated)."""
+    shape = -np.expm1(-rate[:, None] * pairs.lags[None, :])
+    fitted = np.sum(lag_sums * shape, axis=1)
+    norm = (shape**2) @ pairs.pair_counts
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.maximum(fitted, 0.0) / norm
+
+
+def _pair_design(design: Design) -> _PairDesign:
+    """Usable pairs sorted and grouped by lag, and the log-rate grid basis."""
+    first, second, starts, lags, pair_counts = _lag_groups(design)
+    low, high = rate_bounds(design)
+    n_grid = int(np.ceil(np.log(high / low) / LOG_RATE_STEP)) + 1
+    log_grid = np.linspace(np.log(low), np.log(high), n_grid)
+    basis = -np.expm1(-np.exp(log_grid)[:, None] * lags[None, :])
+    return _PairDesign(first, second, starts, lags, pair_counts, log_grid, basis,
+                       (basis**2) @ pair_counts)
+
+
+def _lag_groups(design: Design) -> tuple[np.ndarray, ...]:
+    """Usable pairs sorted by lag; start, lag and size of each group of equal lags."""
+    first, second = _usable_pairs(design)
+    pair_lags = design.times[second] - design.times[first]
+    order = np.argsort(pair_lags, kind="stable")
+    first, second, pair_lags = first[order], second[order], pair_lags[order]
+    new_lag = np.ones(pair_lags.size, dtype=bool)
+    new_lag[1:] = ~np.isclose(pair_lags[1:], pair_lags[:-1], rtol=1e-12, atol=0.0)
+    starts = np.flatnonzero(new_lag)
+    pair_counts = np.diff(np.append(starts, pair_lags.size)).astype(np.float64)
+    return first, second, starts, pair_lags[starts], pair_counts
+
+
+def _usable_pairs(design: Design) -> tuple[np.ndarray, np.ndarray]:
+    """Index pairs s < t of samples with depth >= 2, row-major order."""
+    usable = np.flatnonzero(design.depths >= 2)
+    first, second = np.triu_indices(usable.size, k=1)
+    return usable[first], usable[second]
+
+
+# ---------------------------------------------------------------- helpers
+
+
+def _weights(design: Design) -> np.ndarray:
+    """Pooled read weights w_t = n_t / W."""
+    depths = design.depths.astype(np.float64)
+    return depths / depths.sum()
+
+
+def _sub_batch_size(shape: tuple[int, ...], pairs: _PairDesign | None) -> int:
+    """Replicates per sub-batch so the float64 working arrays stay near SUB_BATCH_BYTES."""
+    _, n_samples, n_taxa = shape
+    per_replicate = 2 * n_samples * n_taxa
+    if pairs is not None:
+        per_replicate += (n_samples**2 + 2 * pairs.first.size + 3 * pairs.lags.size
+                          + pairs.log_grid.size)
+    return max(1, SUB_BATCH_BYTES // (8 * per_replicate))
+
+
+def _fit_flags(design: Design, rate: float | None, clipped: bool) -> tuple[str, ...]:
+    """Plain-text notes on one fit."""
+    flags = []
+    if clipped:
+        flags.append("theta estimate clipped to its allowed range (v = 1/(1 + theta) "
+                     "fell outside (0, 1)); the neutral fit is unreliable")
+    if rate is None:
+        return tuple(flags)
+    if np.any(design.depths < 2):
+        flags.append(f"{int(np.sum(design.depths < 2))} sample(s) with a single read left out "
+                     "of the rate estimate")
+    if _lag_groups(design)[3].size < 2:
+        flags.append("series too short to estimate the rate (fewer than two distinct lags); "
+                     "samples treated as independent")
+        return tuple(flags)
+    low, high = rate_bounds(design)
+    if np.isclose(rate, low, rtol=1e-9):
+        flags.append(f"rate at the lower bound of its search range ({low:.3g} per day): "
+                     "the variogram does not level off within the series")
+    elif np.isclose(rate, high, rtol=1e-9):
+        flags.append(f"rate at the upper bound of its search range ({high:.3g} per day): "
+                     "no correlation between successive samples is detectable")
+    span = float(design.times[-1] - design.times[0])
+    if rate * span < WEAK_RATE_SPAN:
+        flags.append(f"rate weakly identified: rate x span = {rate * span:.2g} "
+                     f"< {WEAK_RATE_SPAN:g}; "
+                     "theta and rate are uncertain")
+    return tuple(flags)

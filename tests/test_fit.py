@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy.optimize import minimize_scalar
+from scipy.optimize import brentq
 
 from driftscreen.dataset import Design
 from driftscreen.errors import InputError
@@ -179,21 +179,29 @@ def test_expected_heterozygosity_of_p_hat() -> None:
     assert abs(mean - independent) > 20 * se
 
 
-def test_theta_solves_the_heterozygosity_equation() -> None:
-    """theta-hat = 1/v - 1 with v = A/Pi, Pi = [H + A (R_w - 1/W)] / (1 - 1/W) at the fitted
-    rate, A the least-squares plateau (design note, section 5), recomputed here directly."""
+def test_theta_and_rate_solve_the_moment_equations() -> None:
+    """At the fitted (v, rate) the pooled spread and adjacent-increment equations hold:
+    E[Q]/E[H] and E[D]/E[H] as in section 5 of the design note, recomputed here directly."""
     rng = np.random.default_rng(32)
     design = irregular_design(30, 3_000, rng)
     counts = simulate(NeutralModel(lognormal_composition(20, rng), 5.0, 0.2), design, 1, rng)[0]
     model = fit(counts, design)
-    first, second, d = variogram(counts[None], design)
-    shape = -np.expm1(-model.rate * (design.times[second] - design.times[first]))
-    plateau = (d[0] / 2) @ shape / (shape @ shape)
-    hetero = 1 - np.sum(model.p**2)
-    inverse_total = 1 / design.depths.sum()
+    depths = design.depths.astype(float)
+    w = depths / depths.sum()
+    y = counts / depths[:, None]
+    hetero = np.sum(model.p * (1 - model.p))
+    spread = np.sum(w[:, None] * (y - model.p) ** 2)
+    noise = y * (1 - y) / (depths[:, None] - 1)
+    increments = np.sum(np.diff(y, axis=0) ** 2 - noise[1:] - noise[:-1])
+    v = 1 / (1 + model.theta)
     r_w = float(correlation_weight(np.array(model.rate), design))
-    pi_total = (hetero + plateau * (r_w - inverse_total)) / (1 - inverse_total)
-    assert model.theta == pytest.approx(pi_total / plateau - 1, rel=1e-10)
+    s1, s2 = np.sum(w / depths), np.sum(w**2 / depths)
+    denominator = 1 - v * r_w - (1 - v) * s2
+    assert spread / hetero == pytest.approx((v * (1 - r_w) + (1 - v) * (s1 - s2)) / denominator,
+                                            rel=1e-9)
+    adjacent = np.sum(-np.expm1(-model.rate * np.diff(design.times)))
+    # the rate is interpolated on a log grid of step 0.05: the equation holds to ~1%
+    assert increments / hetero == pytest.approx(2 * v * adjacent / denominator, rel=0.02)
 
 
 def test_variogram_expectation_matches_section_2_covariances() -> None:
@@ -229,29 +237,36 @@ def test_variogram_expectation_matches_section_2_covariances() -> None:
     assert np.all(raw_bias > 10 * se)
 
 
-def test_rate_is_the_least_squares_optimum() -> None:
-    """Grid + parabolic refinement agrees with a bounded 1-D optimiser (scipy) on the same
-    profile least-squares criterion to 1% in rate."""
+def test_rate_matches_a_root_finder() -> None:
+    """Grid + interpolation agrees with scipy's brentq root of the same increment equation
+    (v eliminated through the spread equation) to 1% in rate."""
     rng = np.random.default_rng(8)
     design = irregular_design(40, 5_000, rng)
     model = NeutralModel(lognormal_composition(50, rng), 100.0, 0.4)
     counts = simulate(model, design, 20, rng)
     result = fit_batch(counts, design)
-    first, second, d = variogram(counts, design)
-    lags = design.times[second] - design.times[first]
+    depths = design.depths.astype(float)
+    w = depths / depths.sum()
+    s1, s2 = np.sum(w / depths), np.sum(w**2 / depths)
     low, high = rate_bounds(design)
     for replicate in range(counts.shape[0]):
-        half = d[replicate] / 2
+        y = counts[replicate] / depths[:, None]
+        p = result.p[replicate]
+        hetero = np.sum(p * (1 - p))
+        ratio_q = np.sum(w[:, None] * (y - p) ** 2) / hetero
+        noise = y * (1 - y) / (depths[:, None] - 1)
+        ratio_d = np.sum(np.diff(y, axis=0) ** 2 - noise[1:] - noise[:-1]) / hetero
 
-        def loss(log_rate: float, half: np.ndarray = half) -> float:
-            shape = -np.expm1(-np.exp(log_rate) * lags)
-            plateau = max(half @ shape, 0.0) / (shape @ shape)
-            return float(np.sum((half - plateau * shape) ** 2))
+        def gap(log_rate: float, ratio_q: float = ratio_q, ratio_d: float = ratio_d) -> float:
+            rate = np.exp(log_rate)
+            r_w = float(correlation_weight(np.array(rate), design))
+            v = (ratio_q * (1 - s2) - (s1 - s2)) / (1 - r_w + ratio_q * r_w - ratio_q * s2
+                                                    - (s1 - s2))
+            adjacent = np.sum(-np.expm1(-rate * np.diff(design.times)))
+            return 2 * v * adjacent / (1 - v * r_w - (1 - v) * s2) - ratio_d
 
-        best = minimize_scalar(loss, bounds=(np.log(low), np.log(high)), method="bounded",
-                               options={"xatol": 1e-8})
-        assert abs(np.log(result.rate[replicate]) - best.x) < 0.01
-        assert loss(np.log(result.rate[replicate])) <= best.fun * (1 + 1e-4)
+        root = brentq(gap, np.log(low), np.log(high), xtol=1e-10)
+        assert abs(np.log(result.rate[replicate]) - root) < 0.01
 
 
 def test_correlation_weight_matches_double_sum() -> None:

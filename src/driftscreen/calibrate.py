@@ -5,6 +5,11 @@ Recipe (Davison & Hinkley 1997, "Bootstrap Methods and their Application", ch. 4
 1. fit the neutral null to the data (:func:`driftscreen.neutral.fit.fit_batch`);
 2. simulate B neutral replicate datasets with the data's own taxa, times and depths
    (:func:`driftscreen.neutral.simulate.simulate`);
+   The moment estimates of theta and rate are biased in short or strongly autocorrelated
+   series, and the null distributions of several statistics depend on them; so a pilot
+   of neutral replicates first measures the estimators' median bias on the log scale and
+   the replicates are simulated at the bias-corrected values (bootstrap bias correction,
+   Davison & Hinkley 1997, sec. 2.2.1);
 3. re-fit the null on every replicate and recompute every statistic on it, so that the
    replicates go through the same estimation step as the data;
 4. p-value = (1 + #replicates at least as extreme) / (B + 1);
@@ -39,6 +44,10 @@ from driftscreen.statistics.combination import cauchy_combination
 from driftscreen.statistics.registry import default_statistics
 
 COMBINED = "combined"
+#: Neutral replicates in the pilot that measures the bias of the theta and rate estimators.
+PILOT_REPLICATES = 64
+#: Largest factor by which the bias correction may move an estimate.
+MAX_BIAS_FACTOR = 4.0
 #: Budget of count cells (replicates x samples x taxa) per chunk of replicates.
 CHUNK_CELLS = 2_000_000
 
@@ -86,12 +95,14 @@ class CalibrationPlan:
     dataset: Dataset
     settings: CalibrationSettings
     fit: NullFit
+    model: NeutralModel
     statistics: tuple[Statistic, ...]
     observed: np.ndarray
     tasks: tuple[ChunkTask, ...]
 
     @property
-    def model(self) -> NeutralModel:
+    def raw_model(self) -> NeutralModel:
+        """The moment estimates before bias correction."""
         return self.fit.model(0)
 
 
@@ -109,6 +120,33 @@ def compute_statistics(statistics: tuple[Statistic, ...], counts: np.ndarray, de
     return np.column_stack(columns).astype(np.float64)
 
 
+def median_log_bias(estimate: float, replicates: np.ndarray) -> float:
+    """log(median of re-fitted replicates) - log(the value they were simulated at)."""
+    values = replicates[np.isfinite(replicates) & (replicates > 0)]
+    if values.size == 0:
+        return 0.0
+    bias = float(np.median(np.log(values)) - np.log(estimate))
+    return float(np.clip(bias, -np.log(MAX_BIAS_FACTOR), np.log(MAX_BIAS_FACTOR)))
+
+
+def bias_corrected_model(model: NeutralModel, design: Design,
+                         stream: np.random.SeedSequence) -> NeutralModel:
+    """The model with theta and rate corrected for the median bias of their estimators.
+
+    A pilot of :data:`PILOT_REPLICATES` replicates is simulated at ``model`` and re-fitted;
+    each parameter is divided by the factor by which the estimator overshot its median.
+    """
+    pilot = fit_batch(simulate(model, design, PILOT_REPLICATES, seeds.generator(stream)), design)
+    theta = model.theta * np.exp(-median_log_bias(model.theta, pilot.theta))
+    rate = None
+    if model.rate is not None and pilot.rate is not None:
+        rate = model.rate * np.exp(-median_log_bias(model.rate, pilot.rate))
+    note = (f"theta (and rate) bias-corrected by a pilot of {PILOT_REPLICATES} neutral "
+            f"replicates: moment estimates theta {model.theta:.4g}"
+            + (f", rate {model.rate:.4g} per day" if model.rate is not None else ""))
+    return NeutralModel(model.p, theta, rate, model.flags + (note,))
+
+
 def plan_calibration(dataset: Dataset, settings: CalibrationSettings,
                      statistics: tuple[Statistic, ...] | None = None) -> CalibrationPlan:
     """Fit the observed data, compute its statistics and lay out the replicate chunks."""
@@ -121,13 +159,14 @@ def plan_calibration(dataset: Dataset, settings: CalibrationSettings,
     observed_fit = fit_batch(dataset.counts[None], design)
     observed = compute_statistics(statistics, dataset.counts[None], design, observed_fit,
                                   statistics_stream)[0]
+    model = bias_corrected_model(observed_fit.model(0), design, seeds.substream(root, seeds.PILOT))
     size = chunk_size_for(design, dataset.n_taxa)
     starts = range(0, settings.replicates, size)
     tasks = tuple(
-        ChunkTask(observed_fit.model(0), design, min(size, settings.replicates - start),
+        ChunkTask(model, design, min(size, settings.replicates - start),
                   seeds.substream(root, seeds.SIMULATION, index), statistics_stream, statistics)
         for index, start in enumerate(starts))
-    return CalibrationPlan(dataset, settings, observed_fit, statistics, observed, tasks)
+    return CalibrationPlan(dataset, settings, observed_fit, model, statistics, observed, tasks)
 
 
 def run_chunk(task: ChunkTask) -> ChunkOutput:
@@ -232,16 +271,21 @@ def combine(observed_pvalues: np.ndarray, replicate_pvalues: np.ndarray) -> Stat
     return StatisticResult(COMBINED, observed, pvalue, null[np.isfinite(null)], "greater", note)
 
 
-def parameter_interval(name: str, estimate: float, replicates: np.ndarray,
+def parameter_interval(name: str, raw: float, simulated: float, replicates: np.ndarray,
                        unit: str = "") -> ParameterEstimate:
-    """Basic bootstrap 95% interval on the log scale (Davison & Hinkley 1997, sec. 5.2)."""
+    """Bias-corrected estimate and basic bootstrap 95% interval on the log scale.
+
+    ``raw`` is the moment estimate on the data, ``simulated`` the bias-corrected value the
+    replicates were drawn at, ``replicates`` their re-fitted estimates. The law of
+    log(replicate) - log(simulated) stands in for that of log(raw) - log(true value)
+    (Davison & Hinkley 1997, sec. 5.2, basic interval).
+    """
     values = replicates[np.isfinite(replicates) & (replicates > 0)]
-    if values.size < 2 or not (np.isfinite(estimate) and estimate > 0):
-        return ParameterEstimate(name, estimate, np.nan, np.nan, unit)
-    q_low, q_high = np.quantile(np.log(values), [0.025, 0.975])
-    log_estimate = np.log(estimate)
-    return ParameterEstimate(name, estimate, float(np.exp(2 * log_estimate - q_high)),
-                             float(np.exp(2 * log_estimate - q_low)), unit)
+    if values.size < 2 or not (np.isfinite(raw) and raw > 0):
+        return ParameterEstimate(name, simulated, np.nan, np.nan, unit)
+    q_low, q_high = np.quantile(np.log(values) - np.log(simulated), [0.025, 0.975])
+    return ParameterEstimate(name, simulated, float(raw * np.exp(-q_high)),
+                             float(raw * np.exp(-q_low)), unit)
 
 
 def summarize_dataset(dataset: Dataset) -> DatasetSummary:
@@ -259,12 +303,12 @@ def summarize_dataset(dataset: Dataset) -> DatasetSummary:
 def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityResult:
     """Turn the observed side and all replicate chunks into a NeutralityResult."""
     null = np.concatenate([out.values for out in outputs], axis=0)
-    model = plan.model
+    model, raw = plan.model, plan.raw_model
     parameters = {"theta": parameter_interval(
-        "theta", model.theta, np.concatenate([out.theta for out in outputs]))}
-    if model.rate is not None:
+        "theta", raw.theta, model.theta, np.concatenate([out.theta for out in outputs]))}
+    if model.rate is not None and raw.rate is not None:
         rates = np.concatenate([out.rate for out in outputs if out.rate is not None])
-        parameters["rate"] = parameter_interval("rate", model.rate, rates, "per day")
+        parameters["rate"] = parameter_interval("rate", raw.rate, model.rate, rates, "per day")
     return NeutralityResult(
         dataset=summarize_dataset(plan.dataset), model=model,
         statistics=calibrate_statistics(plan, null), parameters=parameters,

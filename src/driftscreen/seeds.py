@@ -15,6 +15,7 @@ import numpy as np
 #: Purposes of the streams derived for one dataset.
 SIMULATION = 0
 STATISTICS = 1
+PILOT = 2
 
 
 def name_key(name: str) -> tuple[int, ...]:

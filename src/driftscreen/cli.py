@@ -77,15 +77,18 @@ def add_input_options(parser: argparse.ArgumentParser) -> None:
                        help="two-column file mapping taxon to group, to aggregate taxa")
 
 
+def intake_options(args: argparse.Namespace) -> dict:
+    """The keyword options of ``read_datasets`` given by :func:`add_input_options`."""
+    return dict(layout=args.layout, orientation=args.orientation, sample_id=args.sample_id,
+                dataset_by=args.dataset_by, time_by=args.time_by, depth_by=args.depth_by,
+                depth=args.depth, abundance=args.abundance, remainder=args.remainder,
+                lineage=args.lineage, rank=args.rank, taxon_map=args.taxon_map)
+
+
 def read_input(args: argparse.Namespace) -> list:
     from driftscreen.intake import read_datasets
 
-    return read_datasets(
-        args.counts, args.metadata, layout=args.layout, orientation=args.orientation,
-        sample_id=args.sample_id, dataset_by=args.dataset_by, time_by=args.time_by,
-        depth_by=args.depth_by, depth=args.depth, abundance=args.abundance,
-        remainder=args.remainder, lineage=args.lineage, rank=args.rank,
-        taxon_map=args.taxon_map)
+    return read_datasets(args.counts, args.metadata, **intake_options(args))
 
 
 def add_calibration_options(parser: argparse.ArgumentParser, replicates: int = 999) -> None:
@@ -169,6 +172,49 @@ def run_test(args: argparse.Namespace) -> int:
     return 0
 
 
+# ----------------------------------------------------------------------------- screen
+def add_screen(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("screen", help="test every dataset of a table, in parallel and resumably",
+                       description="Test every dataset of a table against the neutral model "
+                                   "(one dataset per combination of the --dataset-by columns), "
+                                   "adjust the p-values for the false discovery rate across "
+                                   "datasets, and write results.tsv, parameters.tsv, "
+                                   "results.json and report.txt into the output folder. "
+                                   "Finished datasets are kept in the folder: running the same "
+                                   "command again after an interruption goes on where it "
+                                   "stopped.")
+    add_input_options(p)
+    add_calibration_options(p)
+    p.add_argument("--out", metavar="DIR", required=True,
+                   help="output folder (created if needed); also holds the resume store")
+    p.add_argument("--backend", choices=["loky", "dask"], default="loky",
+                   help="parallel backend: worker processes on this machine (loky, default) "
+                        "or a Dask cluster (needs driftscreen[dask])")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="address of a running Dask scheduler (with --backend dask; without "
+                        "it a local cluster of --jobs workers is started)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    p.set_defaults(handler=run_screen)
+
+
+def run_screen(args: argparse.Namespace) -> int:
+    from driftscreen.commands import screen_command
+
+    try:
+        paths = screen_command(
+            args.counts, args.metadata, out=Path(args.out), intake=intake_options(args),
+            replicates=args.replicates, groupings=args.groupings, seed=args.seed,
+            jobs=args.jobs, backend=args.backend, scheduler=args.scheduler,
+            messages=None if args.quiet else sys.stderr)
+    except KeyboardInterrupt:
+        print(f"driftscreen: interrupted; finished datasets are kept in {args.out}: run the "
+              "same command again to go on", file=sys.stderr)
+        return 130
+    for path in paths:
+        print(path)
+    return 0
+
+
 # ----------------------------------------------------------------------------- demo
 def add_demo(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("demo", help="run the whole job on a built-in example",
@@ -200,6 +246,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     add_demo(sub)
     add_test(sub)
+    add_screen(sub)
     add_simulate(sub)
     return parser
 

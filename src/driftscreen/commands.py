@@ -2,8 +2,12 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+import inspect
+import time
+from collections.abc import Mapping, Sequence
+from datetime import datetime
 from pathlib import Path
+from typing import Any, TextIO
 
 from driftscreen import seeds
 from driftscreen.dataset import Dataset
@@ -15,6 +19,10 @@ from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
 
 COUNTS_FILE = "counts.tsv"
 METADATA_FILE = "metadata.tsv"
+RESULTS_FILE = "results.tsv"
+PARAMETERS_FILE = "parameters.tsv"
+RESULTS_JSON_FILE = "results.json"
+REPORT_FILE = "report.txt"
 
 
 def neutral_collection(n_datasets: int, spec: DesignSpec, n_taxa: int, theta: float,
@@ -82,3 +90,77 @@ def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int
     if output:
         atomic_write_text(output, report)
     return report
+
+
+
+def intake_defaults() -> dict[str, Any]:
+    """Default intake options of :func:`driftscreen.intake.read_datasets` (size limits aside).
+
+    Filling them in makes the settings fingerprint the same whether an option was given
+    at its default value or left out.
+    """
+    from driftscreen.intake import read_datasets
+
+    return {name: parameter.default
+            for name, parameter in inspect.signature(read_datasets).parameters.items()
+            if parameter.kind is inspect.Parameter.KEYWORD_ONLY
+            and name not in ("min_samples", "min_taxa")}
+
+
+def screen_command(counts: str, metadata: str | None = None, *, out: Path,
+                   intake: Mapping[str, Any], replicates: int, groupings: int, seed: int,
+                   jobs: int = 1, backend: str = "loky", scheduler: str | None = None,
+                   messages: TextIO | None = None) -> list[Path]:
+    """`driftscreen screen`: test every dataset of a table, resumably; write the outputs.
+
+    Parameters
+    ----------
+    counts, metadata:
+        Input tables, read with :func:`driftscreen.intake.read_datasets`.
+    out:
+        Output folder; it also holds the resume store (``out/.driftscreen``).
+    intake:
+        The other keyword options of ``read_datasets`` (``taxon_map`` is an input file).
+    replicates, groupings, seed:
+        Calibration settings (see :func:`driftscreen.calibrate.neutrality_test`).
+    jobs, backend, scheduler:
+        Parallel execution (see :func:`driftscreen.screen.execution_backend`); results do
+        not depend on them.
+    messages:
+        Stream for the reuse notice and progress; ``None`` is silent.
+
+    Returns
+    -------
+    list of Path
+        ``results.tsv``, ``parameters.tsv``, ``results.json`` and ``report.txt`` in ``out``.
+    """
+    from driftscreen.calibrate import CalibrationSettings
+    from driftscreen.intake import read_datasets
+    from driftscreen.report.tables import parameters_tsv, results_json, results_tsv
+    from driftscreen.report.text import screen_report
+    from driftscreen.screen import check_backend, execution_backend, screen, screen_statistics
+    from driftscreen.store import ResultStore, settings_fingerprint
+
+    started = time.monotonic()
+    check_backend(backend, scheduler)
+    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
+    intake = {**intake_defaults(), **intake}
+    datasets = read_datasets(counts, metadata, **intake, min_samples=1, min_taxa=1)
+    inputs = {"counts": counts, "metadata": metadata, "taxon_map": intake.get("taxon_map")}
+    fingerprint = settings_fingerprint(
+        inputs={role: path for role, path in inputs.items() if path is not None},
+        intake={k: v for k, v in intake.items() if k != "taxon_map"},
+        replicates=replicates, groupings=groupings, seed=seed,
+        statistics=screen_statistics(groupings))
+    store = ResultStore.open(out, fingerprint)
+    with execution_backend(backend, scheduler, jobs) as n_jobs:
+        run = screen(datasets, settings, jobs=n_jobs, store=store, messages=messages)
+    date = datetime.now().astimezone().strftime("%Y-%m-%d %H:%M:%S %Z")
+    texts = {
+        RESULTS_FILE: results_tsv(run),
+        PARAMETERS_FILE: parameters_tsv(run),
+        RESULTS_JSON_FILE: results_json(run, fingerprint),
+        REPORT_FILE: screen_report(run, fingerprint, run_seconds=time.monotonic() - started,
+                                   date=date),
+    }
+    return [atomic_write_text(Path(out) / name, text) for name, text in texts.items()]

@@ -8,10 +8,15 @@ from __future__ import annotations
 
 import math
 import textwrap
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
+from typing import TYPE_CHECKING, Any
 
 from driftscreen import __version__
-from driftscreen.results import NeutralityResult, ParameterEstimate, StatisticResult
+from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
+                                 StatisticResult)
+
+if TYPE_CHECKING:
+    from driftscreen.screen import ScreenResult
 
 WIDTH = 78
 ALPHA = 0.05
@@ -41,13 +46,17 @@ def pvalue_text(pvalue: float, replicates: int) -> str:
 
 def table(headers: Sequence[str], rows: Sequence[Sequence[str]],
           align: str | None = None) -> list[str]:
-    """Aligned columns; ``align`` is one letter per column, 'l' or 'r' (default: l then r)."""
+    """Aligned columns; ``align`` is one letter per column, 'l' or 'r' (default: l then r).
+
+    Columns are two spaces apart, or one when two would make the table wider than WIDTH.
+    """
     align = align or "l" + "r" * (len(headers) - 1)
     widths = [max(len(str(cell)) for cell in column) for column in zip(headers, *rows)]
+    gap = "  " if sum(widths) + 2 * (len(widths) - 1) <= WIDTH else " "
 
     def line(cells: Sequence[str]) -> str:
-        return "  ".join(str(c).ljust(w) if a == "l" else str(c).rjust(w)
-                         for c, w, a in zip(cells, widths, align)).rstrip()
+        return gap.join(str(c).ljust(w) if a == "l" else str(c).rjust(w)
+                        for c, w, a in zip(cells, widths, align)).rstrip()
 
     return [line(headers), line(["-" * w for w in widths])] + [line(row) for row in rows]
 
@@ -102,16 +111,21 @@ def verdict(result: NeutralityResult, alpha: float = ALPHA) -> str:
             "the niche structure of interest.")
 
 
-def design_lines(result: NeutralityResult) -> list[str]:
-    d = result.dataset
+def summary_pairs(d: DatasetSummary) -> list[tuple[str, str]]:
+    """Design, taxa and depths of a dataset as (key, value) pairs."""
     design = (f"time series, {d.n_samples} samples over {number(d.span_days)} days"
               if d.time_series else f"snapshot, {d.n_samples} replicate communities")
     taxa = f"{d.n_taxa}" + (f" ({d.dropped_taxa} with no reads dropped)" if d.dropped_taxa else "")
-    return key_values([
+    return [
         ("Design", design),
         ("Taxa", taxa),
         ("Depth (reads)", f"min {d.depth_min:,}, median {d.depth_median:,.0f}, "
                           f"max {d.depth_max:,}"),
+    ]
+
+
+def design_lines(result: NeutralityResult) -> list[str]:
+    return key_values(summary_pairs(result.dataset) + [
         ("Replicates", f"{result.replicates} (smallest p-value "
                        f"{number(result.pvalue_resolution, 2)})"),
         ("Seed", str(result.seed)),
@@ -125,7 +139,7 @@ def dataset_section(result: NeutralityResult) -> list[str]:
         ["parameter", "estimate", "95% interval", "unit"],
         parameter_rows(result.parameters), "lrrl") + [""]
     lines += heading("Statistics") + table(
-        ["statistic", "observed", "null mean", "null sd", "effect", "obs/median", "p-value"],
+        ["statistic", "observed", "null mean", "null sd", "effect", "obs/med", "p-value"],
         statistic_rows(result.statistics, result.replicates)) + [""]
     lines += wrap(verdict(result))
     notes = list(result.dataset.notes) + list(result.notes) + [
@@ -142,8 +156,246 @@ def dataset_report(result: NeutralityResult) -> str:
     title = f"driftscreen {__version__}: neutrality test of dataset '{result.dataset.name}'"
     lines = heading(title, "=") + dataset_section(result)
     lines += [""] + heading("Reading this report") + wrap(
-        "effect = (observed - null mean) / null sd; obs/median = observed over the median of "
+        "effect = (observed - null mean) / null sd; obs/med = observed over the median of "
         "the neutral replicates; p-values are parametric-bootstrap p-values from neutral "
         "communities simulated with this dataset's taxa, times and depths, re-fitted on "
         "every replicate.")
+    return "\n".join(lines) + "\n"
+
+
+# ----------------------------------------------------------------------------- screen report
+#: What each statistic measures, for the methods paragraph of the screen report.
+STATISTIC_METHODS = {
+    "stationary_divergence":
+        "the Kullback-Leibler divergence of each taxon's abundance distribution from its "
+        "stationary neutral (beta-binomial) law, summed over taxa (after Fisher & Mehta "
+        "2014, PNAS 111:13111)",
+    "regrouping_invariance":
+        "the variance, over R = {groupings} random groupings of taxa, of the log volatility "
+        "of the groups' angular-transformed abundances (the grouping invariance of neutral "
+        "drift, after Washburne et al. 2016, PLoS Comput. Biol. 12:e1004819; angular "
+        "transform of Anscombe 1948, Biometrika 35:246)",
+    "fluctuation_scaling":
+        "the exponent of Taylor's law between the sampling-corrected variance and the mean "
+        "of taxon abundances (Taylor 1961, Nature 189:732)",
+    "dispersion_heterogeneity":
+        "the likelihood ratio of taxon-specific against common beta-binomial dispersion",
+}
+
+
+def duration_text(seconds: float) -> str:
+    """``1h02m03s``, ``4m05s`` or ``7s``."""
+    seconds = int(round(max(seconds, 0.0)))
+    hours, rest = divmod(seconds, 3600)
+    minutes, secs = divmod(rest, 60)
+    if hours:
+        return f"{hours}h{minutes:02d}m{secs:02d}s"
+    return f"{minutes}m{secs:02d}s" if minutes else f"{secs}s"
+
+
+def qvalue_text(qvalue: float) -> str:
+    """A q-value in three decimals (scientific below 0.001); '-' when missing."""
+    if qvalue is None or not math.isfinite(qvalue):
+        return "-"
+    return f"{qvalue:.3f}" if qvalue >= 0.001 else f"{qvalue:.1e}"
+
+
+def verdict_word(qvalue: float, alpha: float = ALPHA) -> str:
+    """The screen's verdict on neutrality from the combined q-value."""
+    if qvalue is None or not math.isfinite(qvalue):
+        return "not tested"
+    return "rejected" if qvalue <= alpha else "not rejected"
+
+
+def wrapped_pairs(pairs: Sequence[tuple[str, str]]) -> list[str]:
+    """Key-value lines whose long values wrap under themselves."""
+    width = max(len(k) for k, _ in pairs)
+    lines: list[str] = []
+    for key, value in pairs:
+        lines += textwrap.wrap(value, WIDTH, initial_indent=f"{key.ljust(width)}  ",
+                               subsequent_indent=" " * (width + 2)) or [key]
+    return lines
+
+
+def intake_text(intake: Mapping[str, Any]) -> str:
+    """The intake options that were given (not at their defaults), as options."""
+    given = []
+    for key, value in intake.items():
+        if value is None or value == "auto" or value == [] or value == ():
+            continue
+        text = ",".join(map(str, value)) if isinstance(value, (list, tuple)) else str(value)
+        given.append(f"--{key.replace('_', '-')} {text}")
+    return ", ".join(given) or "defaults"
+
+
+def combined_qvalue(run: ScreenResult, index: int) -> float:
+    return run.qvalue(index, "combined")
+
+
+def n_tested(run: ScreenResult) -> int:
+    values = run.qvalues.get("combined")
+    return 0 if values is None else int(sum(math.isfinite(v) for v in values))
+
+
+def screen_header(run: ScreenResult, provenance: Mapping[str, Any], run_seconds: float,
+                  date: str) -> list[str]:
+    """Title, date, run time, settings, and the input files with their checksums."""
+    n = len(run.outcomes)
+    analysed = sum(o.analysed for o in run.outcomes)
+    settings = run.settings
+    lines = heading(f"driftscreen {provenance['driftscreen_version']}: neutrality screen of "
+                    f"{n} datasets", "=")
+    lines += wrapped_pairs([
+        ("Date", date),
+        ("Run time", duration_text(run_seconds)
+         + (f" ({run.reused} datasets reused from an earlier run)" if run.reused else "")),
+        ("Datasets", f"{n}: {analysed} analysed, {n - analysed} not analysed"),
+        ("Replicates", f"B = {settings.replicates} per dataset (smallest p-value "
+                       f"{number(1.0 / (settings.replicates + 1), 2)})"),
+        ("Groupings", f"R = {settings.groupings} (regrouping_invariance, time series only)"),
+        ("Seed", str(settings.seed)),
+        ("Intake", intake_text(provenance["intake"])),
+    ]) + [""]
+    lines += heading("Input files")
+    for role, entry in provenance["inputs"].items():
+        lines += wrap(f"{role.replace('_', ' ')}: {entry['path']}")
+        lines.append(f"  sha256 {entry['sha256']}")
+    return lines
+
+
+def summary_row(run: ScreenResult, index: int) -> list[str]:
+    outcome = run.outcomes[index]
+    result = outcome.result
+    parameters = {} if result is None else result.parameters
+    estimate = {k: number(parameters[k].estimate) if k in parameters else "-"
+                for k in ("theta", "rate")}
+    pvalue = "-" if result is None else pvalue_text(result.pvalue, result.replicates)
+    q = combined_qvalue(run, index)
+    return [str(index + 1), outcome.name, str(outcome.summary.n_samples),
+            str(outcome.summary.n_taxa), estimate["theta"], estimate["rate"], pvalue,
+            qvalue_text(q), verdict_word(q)]
+
+
+def shorten(text: str, width: int) -> str:
+    """``text`` cut to ``width`` characters, a cut marked with '~'."""
+    return text if len(text) <= width else text[:max(width - 1, 1)] + "~"
+
+
+def summary_table(run: ScreenResult) -> list[str]:
+    """Datasets sorted by combined q-value, then p-value (untested last); names cut to fit."""
+    headers = ["#", "dataset", "samples", "taxa", "theta", "rate", "p", "q", "verdict"]
+
+    def by_qvalue(index: int) -> tuple[bool, float, float, str]:
+        q, outcome = combined_qvalue(run, index), run.outcomes[index]
+        tested = math.isfinite(q)
+        p = outcome.pvalue("combined") if tested else 0.0
+        return (not tested, q if tested else 0.0, p, outcome.name)
+
+    rows = [summary_row(run, i) for i in sorted(range(len(run.outcomes)), key=by_qvalue)]
+    others = sum(max(len(h), *(len(r[c]) for r in rows)) if rows else len(h)
+                 for c, h in enumerate(headers) if c != 1)
+    name_width = max(len(headers[1]), WIDTH - others - 2 * (len(headers) - 1))
+    for row in rows:
+        row[1] = shorten(row[1], name_width)
+    return table(headers, rows, "rlrrrrrrl")
+
+
+def summary_lines(run: ScreenResult) -> list[str]:
+    tested = n_tested(run)
+    lines = heading("Summary, sorted by combined q-value") + summary_table(run) + [""]
+    lines += wrap(f"p: combined p-value of the dataset (Cauchy combination of its statistics, "
+                  f"calibrated on the neutral replicates); q: its Benjamini-Hochberg q-value "
+                  f"across the {tested} tested datasets; verdict: neutrality rejected when "
+                  f"q <= {ALPHA:g}. theta: immigration parameter; rate: relaxation rate per "
+                  f"day (time series only). # refers to the dataset sections below, where "
+                  "effect = (observed - null mean) / null sd and obs/med = observed over the "
+                  "median of the neutral replicates.")
+    return lines
+
+
+def sentence(text: str) -> str:
+    """``text`` with a capital first letter and a full stop."""
+    text = text.strip()
+    return text[:1].upper() + text[1:] + ("" if text.endswith(".") else ".")
+
+
+def outcome_section(run: ScreenResult, index: int) -> list[str]:
+    """One dataset's section: the single-dataset block plus its q-value, or why not."""
+    outcome = run.outcomes[index]
+    lines = heading(f"[{index + 1}] Dataset '{outcome.name}'", "=")
+    if outcome.result is None:
+        summary = outcome.summary
+        lines += key_values(summary_pairs(summary)) + [""] + wrap(sentence(outcome.note))
+        if summary.notes:
+            lines += [""] + heading("Notes") + bullet_list(summary.notes)
+        if summary.warnings:
+            lines += [""] + heading("Warnings") + bullet_list(summary.warnings)
+        return lines
+    q = combined_qvalue(run, index)
+    lines += dataset_section(outcome.result) + [""]
+    lines += wrap(f"Across the screen: combined q-value {qvalue_text(q)} (Benjamini-Hochberg "
+                  f"over {n_tested(run)} tested datasets); verdict: neutrality {verdict_word(q)}"
+                  f" at FDR {ALPHA:g}.")
+    return lines
+
+
+def statistics_used(run: ScreenResult) -> list[str]:
+    names: list[str] = []
+    for outcome in run.outcomes:
+        if outcome.result is not None:
+            names += [n for n in outcome.result.statistics if n != "combined" and n not in names]
+    return names
+
+
+def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
+    """A paragraph for a manuscript, with B, R, the seed and the version actually used."""
+    settings = run.settings
+    described = [STATISTIC_METHODS.get(name, name).format(groupings=settings.groupings)
+                 for name in statistics_used(run)]
+    if len(described) > 1:
+        statistics = "; ".join(described[:-1]) + "; and " + described[-1]
+    else:
+        statistics = described[0] if described else "none (no dataset could be analysed)"
+    analysed = sum(o.analysed for o in run.outcomes)
+    left_out = len(run.outcomes) - analysed
+    text = (
+        f"Each of {analysed} community datasets was tested against the neutral "
+        "model of community ecology (Hubbell 2001, The Unified Neutral Theory of "
+        "Biodiversity and Biogeography; Etienne 2005, Ecol. Lett. 8:253), in which the "
+        "relative abundances of taxa follow a Wright-Fisher diffusion with immigration from "
+        "a metacommunity and every sample is a multinomial draw of its sequencing depth. "
+        "The metacommunity composition, the immigration parameter theta and, for time "
+        "series, the relaxation rate were estimated by sampling-corrected moment methods. "
+        f"For each dataset, B = {settings.replicates} neutral replicate datasets with the "
+        "dataset's own sampling times and sequencing depths were simulated from the fitted "
+        "model through the lines-of-descent representation of the diffusion's transition "
+        "law (Griffiths 1980, Theor. Popul. Biol. 17:37; Jenkins & Spano 2017, Ann. Appl. "
+        "Probab. 27:1478), exactly wherever its series converges numerically and otherwise "
+        "with a skewness-corrected normal law for the number of lines; the model was "
+        "re-fitted to every replicate and every statistic recomputed (parametric bootstrap "
+        "with re-fitting; Davison & Hinkley 1997, Bootstrap Methods and their "
+        "Application), and p-values were (1 + number of replicates at least as extreme) / "
+        f"(B + 1). The statistics were {statistics}. Per dataset, their p-values were "
+        "combined by the Cauchy combination test (Liu & Xie 2020, J. Am. Stat. Assoc. "
+        "115:393), calibrated against the replicates' leave-one-out p-values, and q-values "
+        "were computed per statistic across datasets by the Benjamini-Hochberg procedure "
+        "(Benjamini & Hochberg 1995, J. R. Stat. Soc. B 57:289). Analyses used driftscreen "
+        f"{version} with master random seed {settings.seed}.")
+    if left_out:
+        text += (f" {left_out} further {'dataset' if left_out == 1 else 'datasets'} could "
+                 "not be analysed (too few samples or taxa, or a failed fit; see the "
+                 "dataset sections).")
+    return heading("Methods") + wrap(text)
+
+
+def screen_report(run: ScreenResult, provenance: Mapping[str, Any], *, run_seconds: float,
+                  date: str) -> str:
+    """The screen's ``report.txt``: header, summary, one section per dataset, methods.
+
+    ``provenance`` is the settings fingerprint of :func:`driftscreen.store.settings_fingerprint`.
+    """
+    lines = screen_header(run, provenance, run_seconds, date) + [""] + summary_lines(run)
+    for index in range(len(run.outcomes)):
+        lines += [""] + outcome_section(run, index)
+    lines += [""] + methods_paragraph(run, provenance["driftscreen_version"])
     return "\n".join(lines) + "\n"

@@ -1,0 +1,70 @@
+"""Wall time of `driftscreen screen` with one and two jobs (run by hand).
+
+Simulates N neutral time series (default 100) of 40 taxa x 100 daily samples with
+``neutral_collection``, writes them as one table, screens them with B = 199 replicates
+with --jobs 1 and with --jobs 2 (loky), and prints both wall times, the speedup, the time
+per dataset and whether the two runs wrote byte-identical results.tsv. Worker processes
+use one BLAS thread each, so the speedup measures the parallel layout on a 2-core machine.
+
+Usage: python bench/bench_screen.py [N_DATASETS] [REPLICATES]
+"""
+
+from __future__ import annotations
+
+import os
+
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+os.environ.setdefault("OMP_NUM_THREADS", "1")
+os.environ.setdefault("MKL_NUM_THREADS", "1")
+
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+from driftscreen.commands import neutral_collection, screen_command, write_collection
+from driftscreen.synthetic import DesignSpec
+
+N_TAXA = 40
+N_SAMPLES = 100
+THETA = 50.0
+RATE = 0.2
+SEED = 2024
+
+
+def write_inputs(folder: Path, n_datasets: int) -> tuple[Path, Path]:
+    spec = DesignSpec(n_samples=N_SAMPLES, interval=1.0, depth=10_000, depth_spread=0.3)
+    datasets = neutral_collection(n_datasets, spec, N_TAXA, THETA, RATE, SEED)
+    return write_collection(datasets, folder / "sim")
+
+
+def timed_screen(counts: Path, metadata: Path, out: Path, replicates: int, jobs: int) -> float:
+    start = time.perf_counter()
+    screen_command(str(counts), str(metadata), out=out,
+                   intake={"dataset_by": ["dataset"], "time_by": "day"},
+                   replicates=replicates, groupings=200, seed=1, jobs=jobs)
+    return time.perf_counter() - start
+
+
+def main(n_datasets: int, replicates: int) -> None:
+    with tempfile.TemporaryDirectory() as temporary:
+        folder = Path(temporary)
+        counts, metadata = write_inputs(folder, n_datasets)
+        print(f"{n_datasets} datasets of {N_TAXA} taxa x {N_SAMPLES} samples, B = {replicates}, "
+              f"{os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f} "
+              "(other processes share the cores above 0)")
+        seconds = {}
+        for jobs in (1, 2):
+            seconds[jobs] = timed_screen(counts, metadata, folder / f"jobs{jobs}", replicates,
+                                         jobs)
+            print(f"--jobs {jobs}: {seconds[jobs]:8.1f} s  "
+                  f"({seconds[jobs] / n_datasets:.2f} s per dataset)")
+        print(f"speedup jobs 2 / jobs 1: {seconds[1] / seconds[2]:.2f}x")
+        same = ((folder / "jobs1" / "results.tsv").read_bytes()
+                == (folder / "jobs2" / "results.tsv").read_bytes())
+        print(f"results.tsv identical: {same}")
+
+
+if __name__ == "__main__":
+    main(int(sys.argv[1]) if len(sys.argv) > 1 else 100,
+         int(sys.argv[2]) if len(sys.argv) > 2 else 199)

@@ -1,0 +1,132 @@
+"""Tables for programs: the screen's ``results.tsv``, ``parameters.tsv`` and ``results.json``.
+
+Everything here is deterministic: the same results give the same bytes, whatever the
+number of jobs and whether a run was resumed. TSV numbers are printed with ``%.6g``
+(empty cell when missing); JSON numbers are exact (``repr``), with ``null`` when missing.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+from driftscreen.screen import DatasetOutcome, ScreenResult
+from driftscreen.serialize import float_to_json, floats_to_json, summary_to_dict
+
+RESULTS_COLUMNS = ("dataset", "statistic", "alternative", "observed", "null_mean", "null_sd",
+                   "null_median", "effect_size", "ratio_to_median", "p_value", "q_value",
+                   "n_samples", "n_taxa", "replicates", "note")
+PARAMETERS_COLUMNS = ("dataset", "design", "theta", "theta_low", "theta_high", "rate_per_day",
+                      "rate_low", "rate_high", "n_taxa", "n_taxa_dropped", "n_samples",
+                      "depth_min", "depth_median", "depth_max", "span_days", "flags", "note")
+FDR_METHOD = ("Benjamini-Hochberg (1995) q-values per statistic across the datasets; "
+              "undefined p-values are left out")
+
+
+def cell(value: object) -> str:
+    """One TSV cell: floats as %.6g, missing numbers empty, text without tabs or newlines."""
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return "" if math.isnan(value) else format(value, ".6g")
+    if isinstance(value, str):
+        return " ".join(value.split())
+    return str(value)
+
+
+def tsv(columns: Sequence[str], rows: Sequence[Sequence[object]]) -> str:
+    lines = ["\t".join(columns)] + ["\t".join(cell(v) for v in row) for row in rows]
+    return "\n".join(lines) + "\n"
+
+
+def statistic_rows(outcome: DatasetOutcome, index: int, run: ScreenResult) -> list[list[object]]:
+    """results.tsv rows of one dataset; empty numbers and the reason if not analysed."""
+    summary, result = outcome.summary, outcome.result
+    rows: list[list[object]] = []
+    for name in outcome.statistic_names():
+        head = [summary.name, name]
+        size = [summary.n_samples, summary.n_taxa]
+        if result is None:
+            rows.append(head + [None] * 9 + size + [None, outcome.note])
+            continue
+        s = result.statistics[name]
+        rows.append(head + [s.alternative, s.statistic, s.null_mean, s.null_sd, s.null_median,
+                            s.effect_size, s.ratio_to_median, s.pvalue,
+                            run.qvalue(index, name)] + size + [result.replicates, s.note])
+    return rows
+
+
+def results_tsv(run: ScreenResult) -> str:
+    """One row per dataset and statistic, ``combined`` last per dataset."""
+    rows = [row for index, outcome in enumerate(run.outcomes)
+            for row in statistic_rows(outcome, index, run)]
+    return tsv(RESULTS_COLUMNS, rows)
+
+
+def parameter_row(outcome: DatasetOutcome) -> list[object]:
+    summary, result = outcome.summary, outcome.result
+    estimates: list[object] = [None] * 6
+    flags = ""
+    if result is not None:
+        for offset, key in ((0, "theta"), (3, "rate")):
+            if key in result.parameters:
+                p = result.parameters[key]
+                estimates[offset:offset + 3] = [p.estimate, p.low, p.high]
+        flags = "; ".join(result.notes)
+    return ([summary.name, "time series" if summary.time_series else "snapshot"] + estimates
+            + [summary.n_taxa, summary.dropped_taxa, summary.n_samples, summary.depth_min,
+               summary.depth_median, summary.depth_max,
+               summary.span_days if summary.time_series else None, flags, outcome.note])
+
+
+def parameters_tsv(run: ScreenResult) -> str:
+    """One row per dataset: fitted null with 95% intervals, design and flags."""
+    return tsv(PARAMETERS_COLUMNS, [parameter_row(o) for o in run.outcomes])
+
+
+def statistic_record(outcome: DatasetOutcome, index: int, run: ScreenResult,
+                     name: str) -> dict[str, Any]:
+    s = outcome.result.statistics[name]  # type: ignore[union-attr]
+    return {"name": name, "alternative": s.alternative, "observed": float_to_json(s.statistic),
+            "null_mean": float_to_json(s.null_mean), "null_sd": float_to_json(s.null_sd),
+            "null_median": float_to_json(s.null_median),
+            "effect_size": float_to_json(s.effect_size),
+            "ratio_to_median": float_to_json(s.ratio_to_median),
+            "p_value": float_to_json(s.pvalue), "q_value": float_to_json(run.qvalue(index, name)),
+            "note": s.note, "null_distribution": floats_to_json(s.null_distribution)}
+
+
+def dataset_record(outcome: DatasetOutcome, index: int, run: ScreenResult) -> dict[str, Any]:
+    result = outcome.result
+    record: dict[str, Any] = {"name": outcome.name, "analysed": result is not None,
+                              "note": outcome.note, "summary": summary_to_dict(outcome.summary)}
+    if result is None:
+        return record
+    record["parameters"] = {key: {"estimate": float_to_json(p.estimate),
+                                  "low": float_to_json(p.low), "high": float_to_json(p.high),
+                                  "unit": p.unit}
+                            for key, p in result.parameters.items()}
+    record["flags"] = list(result.notes)
+    record["replicates"] = result.replicates
+    record["statistics"] = [statistic_record(outcome, index, run, name)
+                            for name in result.statistics]
+    return record
+
+
+def results_json(run: ScreenResult, provenance: Mapping[str, Any]) -> str:
+    """Settings, inputs with checksums and every dataset's results, as JSON text.
+
+    ``provenance`` is the settings fingerprint of :func:`driftscreen.store.settings_fingerprint`.
+    """
+    document = {
+        "driftscreen_version": provenance["driftscreen_version"],
+        "inputs": [{"role": role, **entry} for role, entry in provenance["inputs"].items()],
+        "intake": provenance["intake"],
+        "settings": {"replicates": run.settings.replicates, "groupings": run.settings.groupings,
+                     "seed": run.settings.seed, "statistics": provenance["statistics"]},
+        "fdr": FDR_METHOD,
+        "datasets": [dataset_record(o, i, run) for i, o in enumerate(run.outcomes)],
+    }
+    return json.dumps(document, indent=1, allow_nan=False) + "\n"

@@ -1,0 +1,127 @@
+"""Results as JSON-safe dictionaries and back, without losing a bit.
+
+Floats are written as JSON numbers, which Python prints with ``repr`` (the shortest
+string that reads back to the same double), so a round trip is exact (except the
+metacommunity composition ``p``, which :class:`NeutralModel` renormalises: last-bit changes
+at most). JSON has no NaN or infinity: NaN becomes ``null`` and the infinities the strings
+``"inf"`` and ``"-inf"``.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Mapping
+from typing import Any
+
+import numpy as np
+
+from driftscreen.neutral.model import NeutralModel
+from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
+                                 StatisticResult)
+
+INFINITIES = {"inf": math.inf, "-inf": -math.inf}
+
+
+def float_to_json(value: float) -> float | str | None:
+    """A float as a JSON value: itself, ``None`` for NaN, ``"inf"``/``"-inf"``."""
+    value = float(value)
+    if math.isnan(value):
+        return None
+    if math.isinf(value):
+        return "inf" if value > 0 else "-inf"
+    return value
+
+
+def float_from_json(value: float | str | None) -> float:
+    """Inverse of :func:`float_to_json`."""
+    if value is None:
+        return math.nan
+    if isinstance(value, str):
+        return INFINITIES[value]
+    return float(value)
+
+
+def floats_to_json(values: Iterable[float]) -> list[float | str | None]:
+    return [float_to_json(v) for v in np.asarray(values, dtype=np.float64).ravel()]
+
+
+def floats_from_json(values: Iterable[float | str | None]) -> np.ndarray:
+    return np.array([float_from_json(v) for v in values], dtype=np.float64)
+
+
+def summary_to_dict(summary: DatasetSummary) -> dict[str, Any]:
+    return {
+        "name": summary.name, "n_samples": summary.n_samples, "n_taxa": summary.n_taxa,
+        "dropped_taxa": summary.dropped_taxa, "time_series": summary.time_series,
+        "span_days": float_to_json(summary.span_days), "depth_min": summary.depth_min,
+        "depth_median": float_to_json(summary.depth_median), "depth_max": summary.depth_max,
+        "notes": list(summary.notes), "warnings": list(summary.warnings),
+    }
+
+
+def summary_from_dict(data: Mapping[str, Any]) -> DatasetSummary:
+    return DatasetSummary(
+        name=data["name"], n_samples=int(data["n_samples"]), n_taxa=int(data["n_taxa"]),
+        dropped_taxa=int(data["dropped_taxa"]), time_series=bool(data["time_series"]),
+        span_days=float_from_json(data["span_days"]), depth_min=int(data["depth_min"]),
+        depth_median=float_from_json(data["depth_median"]), depth_max=int(data["depth_max"]),
+        notes=tuple(data["notes"]), warnings=tuple(data["warnings"]))
+
+
+def model_to_dict(model: NeutralModel) -> dict[str, Any]:
+    return {"p": floats_to_json(model.p), "theta": float_to_json(model.theta),
+            "rate": None if model.rate is None else float_to_json(model.rate),
+            "flags": list(model.flags)}
+
+
+def model_from_dict(data: Mapping[str, Any]) -> NeutralModel:
+    rate = data["rate"]
+    return NeutralModel(p=floats_from_json(data["p"]), theta=float_from_json(data["theta"]),
+                        rate=None if rate is None else float_from_json(rate),
+                        flags=tuple(data["flags"]))
+
+
+def parameter_to_dict(parameter: ParameterEstimate) -> dict[str, Any]:
+    return {"name": parameter.name, "estimate": float_to_json(parameter.estimate),
+            "low": float_to_json(parameter.low), "high": float_to_json(parameter.high),
+            "unit": parameter.unit}
+
+
+def parameter_from_dict(data: Mapping[str, Any]) -> ParameterEstimate:
+    return ParameterEstimate(data["name"], float_from_json(data["estimate"]),
+                             float_from_json(data["low"]), float_from_json(data["high"]),
+                             data["unit"])
+
+
+def statistic_to_dict(result: StatisticResult) -> dict[str, Any]:
+    return {"name": result.name, "statistic": float_to_json(result.statistic),
+            "pvalue": float_to_json(result.pvalue), "alternative": result.alternative,
+            "note": result.note, "null_distribution": floats_to_json(result.null_distribution)}
+
+
+def statistic_from_dict(data: Mapping[str, Any]) -> StatisticResult:
+    return StatisticResult(data["name"], float_from_json(data["statistic"]),
+                           float_from_json(data["pvalue"]),
+                           floats_from_json(data["null_distribution"]), data["alternative"],
+                           data["note"])
+
+
+def result_to_dict(result: NeutralityResult) -> dict[str, Any]:
+    """Everything needed to rebuild ``result`` exactly (null distributions included)."""
+    return {
+        "dataset": summary_to_dict(result.dataset),
+        "model": model_to_dict(result.model),
+        "statistics": [statistic_to_dict(s) for s in result.statistics.values()],
+        "parameters": [parameter_to_dict(p) for p in result.parameters.values()],
+        "replicates": result.replicates, "seed": result.seed, "notes": list(result.notes),
+    }
+
+
+def result_from_dict(data: Mapping[str, Any]) -> NeutralityResult:
+    """Inverse of :func:`result_to_dict` (statistics and parameters keep their order)."""
+    statistics = [statistic_from_dict(s) for s in data["statistics"]]
+    parameters = [parameter_from_dict(p) for p in data["parameters"]]
+    return NeutralityResult(
+        dataset=summary_from_dict(data["dataset"]), model=model_from_dict(data["model"]),
+        statistics={s.name: s for s in statistics}, parameters={p.name: p for p in parameters},
+        replicates=int(data["replicates"]), seed=int(data["seed"]), notes=tuple(data["notes"]))

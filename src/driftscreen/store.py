@@ -1,0 +1,206 @@
+"""The resume store of a screen: finished datasets survive an interrupted run.
+
+Layout inside the output folder::
+
+    DIR/.driftscreen/settings.json           the settings fingerprint of the run
+    DIR/.driftscreen/datasets/<name>.json    one record per finished dataset
+
+Every file is written through a temporary file and a rename
+(:func:`driftscreen.files.atomic_write_text`), so a killed run leaves either a whole record
+or none. The fingerprint holds everything that changes results: the driftscreen version,
+the SHA-256 of every input file, the intake options, replicates, groupings, seed and the
+configured statistics. A run with the same fingerprint reuses every finished record; a run
+with another fingerprint is refused, naming what differs.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import re
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+from driftscreen import __version__
+from driftscreen.errors import InputError
+from driftscreen.files import atomic_write_text, sha256_of
+
+STORE_FOLDER = ".driftscreen"
+SETTINGS_FILE = "settings.json"
+RECORDS_FOLDER = "datasets"
+#: Version of the store's own layout; part of the fingerprint.
+STORE_FORMAT = 1
+#: Fingerprint entries that are shown but never compared (the same bytes may be moved).
+NOT_COMPARED = ("path",)
+
+
+def settings_fingerprint(*, inputs: Mapping[str, str | os.PathLike],
+                         intake: Mapping[str, Any], replicates: int, groupings: int,
+                         seed: int, statistics: Sequence[str]) -> dict[str, Any]:
+    """Everything that determines a screen's results, as a JSON-safe dictionary.
+
+    Parameters
+    ----------
+    inputs:
+        Input files by role (``"counts"``, ``"metadata"``, ``"taxon_map"``).
+    intake:
+        Intake options (JSON-safe values), keyed by their ``read_datasets`` names.
+    replicates, groupings, seed:
+        Calibration settings.
+    statistics:
+        Descriptions of the configured statistics (e.g. their reprs with all options).
+    """
+    return {
+        "store_format": STORE_FORMAT,
+        "driftscreen_version": __version__,
+        "inputs": {role: {"path": str(path), "sha256": sha256_of(path)}
+                   for role, path in inputs.items()},
+        "intake": dict(intake),
+        "replicates": int(replicates),
+        "groupings": int(groupings),
+        "seed": int(seed),
+        "statistics": list(statistics),
+    }
+
+
+def canonical_json(data: Any) -> str:
+    """Deterministic JSON text (sorted keys, no NaN) for hashing and comparing."""
+    return json.dumps(data, sort_keys=True, allow_nan=False, separators=(",", ":"))
+
+
+def comparable(fingerprint: Mapping[str, Any]) -> dict[str, Any]:
+    """The fingerprint without the entries that are only shown (input paths)."""
+    inputs = {role: {k: v for k, v in entry.items() if k not in NOT_COMPARED}
+              for role, entry in fingerprint.get("inputs", {}).items()}
+    return {**fingerprint, "inputs": inputs}
+
+
+def fingerprint_key(fingerprint: Mapping[str, Any]) -> str:
+    """SHA-256 of the compared part of a fingerprint; stamped on every record."""
+    return hashlib.sha256(canonical_json(comparable(fingerprint)).encode("utf-8")).hexdigest()
+
+
+def describe(key: str, value: Any) -> str:
+    """A fingerprint value as the user knows it."""
+    if key.startswith("inputs."):
+        return "file content " + (value["sha256"][:12] if isinstance(value, dict) else "absent")
+    if key == "statistics":
+        return "; ".join(value) if isinstance(value, list) else repr(value)
+    return "none" if value is None else str(value)
+
+
+def label(key: str) -> str:
+    """The option or item a fingerprint key stands for."""
+    if key.startswith("inputs."):
+        return f"{key.split('.', 1)[1]} file"
+    if key.startswith("intake."):
+        return "--" + key.split(".", 1)[1].replace("_", "-")
+    if key in ("replicates", "groupings", "seed"):
+        return f"--{key}"
+    return key.replace("_", " ")
+
+
+def flat_entries(fingerprint: Mapping[str, Any]) -> dict[str, Any]:
+    """``{"seed": 1, "intake.time_by": "day", "inputs.counts": {...}, ...}``."""
+    entries: dict[str, Any] = {}
+    for key, value in comparable(fingerprint).items():
+        if key in ("inputs", "intake") and isinstance(value, dict):
+            entries.update({f"{key}.{k}": v for k, v in value.items()})
+        else:
+            entries[key] = value
+    return entries
+
+
+def differences(stored: Mapping[str, Any], current: Mapping[str, Any]) -> list[str]:
+    """What differs between two fingerprints, one short phrase per item."""
+    old, new = flat_entries(stored), flat_entries(current)
+    phrases = []
+    for key in sorted(set(old) | set(new)):
+        if canonical_json(old.get(key)) != canonical_json(new.get(key)):
+            phrases.append(f"{label(key)}: {describe(key, old.get(key))} there, "
+                           f"{describe(key, new.get(key))} now")
+    return phrases
+
+
+def record_file_name(name: str) -> str:
+    """A safe, unique file name for dataset ``name`` (readable prefix + name hash)."""
+    slug = re.sub(r"[^A-Za-z0-9._-]+", "_", name).strip("._")[:40] or "dataset"
+    digest = hashlib.sha256(name.encode("utf-8")).hexdigest()[:12]
+    return f"{slug}-{digest}.json"
+
+
+class ResultStore:
+    """Finished datasets of one screen, kept in ``DIR/.driftscreen``.
+
+    Use :meth:`open`, which checks the settings fingerprint against what ``DIR`` holds.
+    """
+
+    def __init__(self, out: Path, fingerprint: Mapping[str, Any]) -> None:
+        self.out = Path(out)
+        self.fingerprint = dict(fingerprint)
+        self.key = fingerprint_key(fingerprint)
+
+    @property
+    def folder(self) -> Path:
+        return self.out / STORE_FOLDER
+
+    @property
+    def settings_path(self) -> Path:
+        return self.folder / SETTINGS_FILE
+
+    @property
+    def records_folder(self) -> Path:
+        return self.folder / RECORDS_FOLDER
+
+    @classmethod
+    def open(cls, out: str | os.PathLike, fingerprint: Mapping[str, Any]) -> ResultStore:
+        """The store in ``out``: created if new, checked if present.
+
+        Raises
+        ------
+        InputError
+            If ``out`` holds a store made with other settings (the message names every
+            difference and the fix).
+        """
+        store = cls(Path(out), fingerprint)
+        stored = store.stored_fingerprint()
+        if stored is None:
+            atomic_write_text(store.settings_path, json.dumps(store.fingerprint, indent=1,
+                                                              allow_nan=False) + "\n")
+        elif fingerprint_key(stored) != store.key:
+            changed = "; ".join(differences(stored, fingerprint) or ["store format"])
+            raise InputError(f"holds results of a screen with other settings ({changed})",
+                             file=str(store.out), place="option --out",
+                             fix="give another --out folder, or remove this one to start afresh")
+        return store
+
+    def stored_fingerprint(self) -> dict[str, Any] | None:
+        """The fingerprint saved in the folder, or None if there is none (or unreadable)."""
+        try:
+            data = json.loads(self.settings_path.read_text(encoding="utf-8"))
+        except (FileNotFoundError, json.JSONDecodeError):
+            return None
+        return data if isinstance(data, dict) else None
+
+    def save(self, name: str, outcome: Mapping[str, Any]) -> Path:
+        """Write the record of finished dataset ``name`` atomically."""
+        record = {"settings": self.key, "name": name, "outcome": dict(outcome)}
+        return atomic_write_text(self.records_folder / record_file_name(name),
+                                 json.dumps(record, allow_nan=False) + "\n")
+
+    def finished(self) -> dict[str, dict[str, Any]]:
+        """Outcomes of the finished datasets by name (records of other settings ignored)."""
+        outcomes: dict[str, dict[str, Any]] = {}
+        if not self.records_folder.is_dir():
+            return outcomes
+        for path in sorted(self.records_folder.glob("*.json")):
+            try:
+                record = json.loads(path.read_text(encoding="utf-8"))
+            except (OSError, json.JSONDecodeError):
+                continue
+            if (isinstance(record, dict) and record.get("settings") == self.key
+                    and path.name == record_file_name(str(record.get("name")))):
+                outcomes[record["name"]] = record["outcome"]
+        return outcomes

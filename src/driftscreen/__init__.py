@@ -1,9 +1,29 @@
-"""driftscreen: is a microbial community's variation neutral drift plus immigration, or niche structure?"""
+"""driftscreen: is a microbial community's variation neutral drift plus immigration, or niche structure?
 
-from driftscreen.dataset import Dataset, Design
-from driftscreen.errors import InputError
-from driftscreen.neutral.model import NeutralModel, NullFit
+The public API mirrors the command line:
+
+- :func:`read_datasets` / :func:`write_tables`: tables on disk to :class:`Dataset` records and back;
+- :class:`NeutralModel`, :func:`simulate` and :func:`driftscreen.neutral.fit.fit`: the neutral
+  null (Wright-Fisher diffusion with immigration, sequenced multinomially), simulated exactly
+  and fitted;
+- :func:`neutrality_test`: one dataset, every statistic calibrated by parametric bootstrap,
+  returning a :class:`NeutralityResult` with ``summary()``;
+- :func:`driftscreen.screen.screen`: many datasets, in parallel, with Benjamini-Hochberg q-values;
+- :class:`StochasticLogistic`, :class:`NoisyLotkaVolterra`: niche alternatives for power analysis.
+"""
 
 __version__ = "0.1.0"
 
-__all__ = ["Dataset", "Design", "InputError", "NeutralModel", "NullFit", "__version__"]
+from driftscreen.calibrate import neutrality_test  # noqa: E402
+from driftscreen.dataset import Dataset, Design  # noqa: E402
+from driftscreen.errors import InputError  # noqa: E402
+from driftscreen.intake import read_datasets, write_tables  # noqa: E402
+from driftscreen.neutral import NeutralModel, NullFit, simulate  # noqa: E402
+from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic  # noqa: E402
+from driftscreen.results import NeutralityResult, StatisticResult  # noqa: E402
+
+__all__ = [
+    "Dataset", "Design", "InputError", "NeutralModel", "NeutralityResult", "NoisyLotkaVolterra",
+    "NullFit", "StatisticResult", "StochasticLogistic", "__version__", "neutrality_test",
+    "read_datasets", "simulate", "write_tables",
+]

@@ -230,9 +230,10 @@ def add_demo(sub: argparse._SubParsersAction) -> None:
 
 
 def run_demo(args: argparse.Namespace) -> int:
-    from driftscreen.commands import demo_command
+    from driftscreen.demo import run_demo as demo
 
-    sys.stdout.write(demo_command(Path(args.out), replicates=args.replicates, jobs=args.jobs))
+    sys.stdout.write(demo(Path(args.out), replicates=args.replicates, jobs=args.jobs,
+                          messages=sys.stderr))
     return 0
 
 

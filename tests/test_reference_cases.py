@@ -352,8 +352,6 @@ def check_cauchy_combination(folder: Path, case: Case) -> None:
     assert stats.kstest(combined, "uniform").pvalue > settings["ks_pvalue_above"]
 
 
-@pytest.mark.xfail(strict=True, reason="known, reported: tan((1/2 - p) pi) and 1/2 - arctan(x)/pi "
-                   "lose relative precision for small p; 1/tan(p pi) and arctan(1/x)/pi keep it")
 def test_cauchy_combination_keeps_relative_precision_for_tiny_pvalues() -> None:
     # Source: Liu & Xie (2020) JASA 115:393: one p-value (or k equal ones) combines to itself
     for p in (1e-10, 1e-20, 1e-200):

@@ -31,11 +31,18 @@ class Statistic(Protocol):
     alternative:
         ``"greater"``: large values speak against neutrality; ``"two-sided"``:
         departures from the null median in either direction do.
+    marginal:
+        True if the statistic compares each taxon's abundance distribution across samples
+        with the stationary law. In a time series that covers few correlation times the
+        samples explore little of that law, and the bootstrap calibration of such a
+        statistic then hinges on the poorly identified rate; the calibration withholds its
+        p-value there (see :data:`driftscreen.calibrate.MIN_CORRELATION_TIMES`).
     """
 
     name: str
     needs_time: bool
     alternative: Alternative
+    marginal: bool
 
     def compute(self, counts: np.ndarray, design: Design, fit: NullFit,
                 rng: np.random.Generator) -> np.ndarray:

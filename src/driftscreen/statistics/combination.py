@@ -16,24 +16,33 @@ from __future__ import annotations
 
 import numpy as np
 
-#: Below this p-value tan((1/2 - p) pi) loses precision; 1/(p pi) is exact to O(p^2) there.
-TINY_PVALUE = 1e-15
 #: p-values above this are treated as this value: tan(-pi/2) is infinite, and an infinite
 #: negative term would make a sum with an exact zero p-value undefined.
 LARGEST_PVALUE = 1.0 - 2.0**-53
 
 
 def cauchy_transform(pvalues: np.ndarray) -> np.ndarray:
-    """tan((1/2 - p) pi), computed as 1/(p pi) for p < 1e-15 (infinite below ~5.6e-309).
+    """tan((1/2 - p) pi) = 1 / tan(p pi), in the form that keeps relative precision.
 
+    For p <= 1/2 the reciprocal form is used (tan((1/2 - p) pi) loses all relative
+    precision as p -> 0, where 1/tan(p pi) ~ 1/(p pi) does not); p = 0 gives +inf.
     p-values equal to 1 are mapped as p = 1 - 2^-53 (a large finite negative value).
     NaN stays NaN.
     """
     p = np.minimum(np.asarray(pvalues, dtype=np.float64), LARGEST_PVALUE)
-    tiny = p < TINY_PVALUE
+    small = p <= 0.5
     with np.errstate(divide="ignore", over="ignore"):
-        small_form = 1.0 / (np.where(tiny, p, 1.0) * np.pi)
-    return np.where(tiny, small_form, np.tan((0.5 - p) * np.pi))
+        reciprocal = 1.0 / np.tan(np.where(small, p, 0.25) * np.pi)
+    return np.where(small, reciprocal, np.tan((0.5 - p) * np.pi))
+
+
+def cauchy_sf(x: np.ndarray) -> np.ndarray:
+    """Standard Cauchy survival function 1/2 - arctan(x)/pi, as arctan(1/x)/pi for x > 0."""
+    x = np.asarray(x, dtype=np.float64)
+    positive = x > 0
+    with np.errstate(divide="ignore"):
+        tail = np.arctan(1.0 / np.where(positive, x, 1.0)) / np.pi
+    return np.where(positive, tail, 0.5 - np.arctan(x) / np.pi)
 
 
 def cauchy_combination(pvalues: np.ndarray, weights: np.ndarray | None = None,
@@ -69,5 +78,5 @@ def cauchy_combination(pvalues: np.ndarray, weights: np.ndarray | None = None,
     statistic = terms.sum(axis=axis)
     total_weight = weights.sum(axis=axis)
     with np.errstate(divide="ignore", invalid="ignore"):
-        pvalue = 0.5 - np.arctan(statistic / total_weight) / np.pi
+        pvalue = cauchy_sf(statistic / total_weight)
     return statistic, pvalue

@@ -87,6 +87,7 @@ class DispersionHeterogeneity:
     name: ClassVar[str] = "dispersion_heterogeneity"
     needs_time: ClassVar[bool] = False
     alternative: ClassVar[Alternative] = "greater"
+    marginal: ClassVar[bool] = True
 
     log2_span: int = 3
 

@@ -67,6 +67,7 @@ class FluctuationScaling:
     name: ClassVar[str] = "fluctuation_scaling"
     needs_time: ClassVar[bool] = False
     alternative: ClassVar[Alternative] = "two-sided"
+    marginal: ClassVar[bool] = True
 
     min_mean_count: float = 1.0
 

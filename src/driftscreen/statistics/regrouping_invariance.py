@@ -87,6 +87,7 @@ class RegroupingInvariance:
     name: ClassVar[str] = "regrouping_invariance"
     needs_time: ClassVar[bool] = True
     alternative: ClassVar[Alternative] = "greater"
+    marginal: ClassVar[bool] = False
 
     n_groupings: int = 200
     min_group_reads: float = 5.0

@@ -97,6 +97,7 @@ class StationaryDivergence:
     name: ClassVar[str] = "stationary_divergence"
     needs_time: ClassVar[bool] = False
     alternative: ClassVar[Alternative] = "greater"
+    marginal: ClassVar[bool] = True
 
     max_classes: int = 6
     samples_per_class: int = 8

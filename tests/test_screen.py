@@ -35,7 +35,7 @@ def tables(tmp_path_factory):
     """Four small neutral time series written by `driftscreen simulate --datasets 4`."""
     folder = tmp_path_factory.mktemp("sim")
     code = main(["simulate", "--out", str(folder), "--datasets", str(N_DATASETS), "--taxa", "15",
-                 "--samples", "30", "--theta", "40", "--rate", "0.3", "--seed", "5"])
+                 "--samples", "30", "--theta", "40", "--rate", "1.0", "--seed", "5"])
     assert code == 0
     return folder / "counts.tsv", folder / "metadata.tsv"
 
@@ -44,7 +44,7 @@ def tables(tmp_path_factory):
 def mixed_tables(tmp_path_factory):
     """Three neutral time series plus one too short to analyse (3 samples)."""
     spec = DesignSpec(n_samples=25, interval=1.0, depth=3000)
-    datasets = neutral_collection(3, spec, 12, 40.0, 0.3, seed=8, prefix="lake")
+    datasets = neutral_collection(3, spec, 12, 40.0, 1.0, seed=8, prefix="lake")
     datasets += neutral_collection(1, DesignSpec(n_samples=3, interval=1.0, depth=3000), 12,
                                    40.0, 0.3, seed=8, prefix="pond")
     return write_collection(datasets, tmp_path_factory.mktemp("mixed"))
@@ -376,3 +376,20 @@ def test_python_call_and_command_line_share_the_store(tables, reference, tmp_pat
     assert (out / "results.tsv").read_bytes() == (reference / "results.tsv").read_bytes()
     assert main(screen_args(tables, out)) == 0
     assert f"reusing {N_DATASETS} finished datasets" in capsys.readouterr().err
+
+
+def test_marginal_statistics_withheld_on_short_series(tmp_path, capsys):
+    """A slow series (rate x span ~ 6 correlation times) gets no p-value for the marginal
+    statistics, with the reason in the note; regrouping_invariance and combined keep theirs."""
+    folder = tmp_path / "slow"
+    assert main(["simulate", "--out", str(folder), "--taxa", "15", "--samples", "30",
+                 "--theta", "40", "--rate", "0.2", "--seed", "5"]) == 0
+    out = tmp_path / "res"
+    assert main(screen_args((folder / "counts.tsv", folder / "metadata.tsv"), out)) == 0
+    capsys.readouterr()
+    rows = {r["statistic"]: r for r in read_rows(out / "results.tsv")}
+    for name in ("stationary_divergence", "fluctuation_scaling", "dispersion_heterogeneity"):
+        assert rows[name]["p_value"] == "" and "correlation times" in rows[name]["note"]
+        assert rows[name]["observed"] != ""
+    assert rows["regrouping_invariance"]["p_value"] != ""
+    assert rows["combined"]["p_value"] != ""

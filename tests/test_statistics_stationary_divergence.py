@@ -201,7 +201,24 @@ def test_absent_taxa_many_zeros_and_few_samples():
     values = STAT.compute(counts, design, fit, np.random.default_rng(0))
     assert np.all(np.isfinite(values))
     parts = STAT.by_taxon(counts, design, fit)
-    assert np.all(parts.contribution[:5, -2:] == 0.0) and np.all(parts.divergence >= 0)
+    # absent taxa have p = 0: they sort first and join no group with reads
+    absent = parts.pooled.p[:5] == 0
+    assert np.all(absent[:, :2]) and np.all(parts.contribution[:5][absent] == 0.0)
+    assert np.all(parts.divergence >= 0)
+
+
+def test_rare_taxa_are_pooled_into_groups_of_shape_at_least_one():
+    # Grouping property of the Dirichlet law (design note, section 6): pooled counts are the
+    # sums of their members' counts, and every pool of rare taxa has theta P_G >= 1.
+    design = snapshot_design(40, 2000)
+    p = composition(60, seed=4)
+    counts, fit = neutral_batch(p, 10.0, 0.5, design, 5, seed=3)
+    parts = STAT.by_taxon(counts, design, fit)
+    pooled = parts.pooled
+    assert np.array_equal(pooled.counts.sum(axis=2), counts.sum(axis=2))
+    pools = pooled.members > 1
+    assert pools.any()
+    assert np.all(fit.theta[:, None].repeat(60, 1)[pools] * pooled.p[pools] >= 1.0 - 1e-12)
 
 
 def test_diagnose_reports_sorted_taxa_whose_contributions_sum_to_the_statistic():
@@ -211,7 +228,7 @@ def test_diagnose_reports_sorted_taxa_whose_contributions_sum_to_the_statistic()
     model = fit.model(0)
     table = STAT.diagnose(counts, design, model, np.random.default_rng(0))
     assert isinstance(table, pd.DataFrame)
-    assert list(table.columns) == ["taxon", "p", "observed_zero_fraction",
+    assert list(table.columns) == ["taxon", "members", "p", "observed_zero_fraction",
                                    "expected_zero_fraction", "kl_divergence", "contribution",
                                    "variance_ratio", "direction"]
     assert np.all(np.diff(table["contribution"].to_numpy()) <= 0)

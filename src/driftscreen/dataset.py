@@ -80,6 +80,9 @@ class Dataset:
         Number of taxa removed because they had no reads in this dataset.
     source:
         Input files this dataset came from.
+    from_relative:
+        True if the counts were converted from relative abundances at a depth the user
+        stated (the report then shows how the results move with that depth).
     """
 
     name: str
@@ -91,6 +94,7 @@ class Dataset:
     warnings: tuple[str, ...] = ()
     dropped_taxa: int = 0
     source: tuple[str, ...] = field(default=())
+    from_relative: bool = False
 
     def __post_init__(self) -> None:
         counts = np.asarray(self.counts)

@@ -58,6 +58,8 @@ class Converted:
         or ``None`` for count data or complete relative data.
     rescaled:
         True if incomplete samples were renormalised rather than pooled.
+    relative:
+        True if the table held relative abundances converted at a stated depth.
     notes, warnings:
         Plain sentences for the report.
     """
@@ -66,6 +68,7 @@ class Converted:
     other: np.ndarray | None = None
     listed_share: np.ndarray | None = None
     rescaled: bool = False
+    relative: bool = False
     notes: list[str] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
 
@@ -150,7 +153,8 @@ def to_counts(table: CountTable, kind: str, remainder: str, depths: Depths | Non
     check_converted(table, counts, other, depths)
     note = f"converted {kind} abundances to counts at {depth_phrase(depths)}"
     partial = bool(incomplete.any())
-    return Converted(counts, other, share if partial else None, rescale and partial, notes=[note])
+    return Converted(counts, other, share if partial else None, rescale and partial,
+                     relative=True, notes=[note])
 
 
 def check_sums(table: CountTable, kind: str, share: np.ndarray) -> None:

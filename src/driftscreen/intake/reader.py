@@ -302,7 +302,7 @@ def build_dataset(name: str, members: np.ndarray, table: Table, times: Times | N
     return Dataset(name=name, counts=kept, taxa=taxa, samples=samples,
                    design=Design(depths=depths, times=days), notes=tuple(notes),
                    warnings=table.warnings + single_read_warning(samples, depths),
-                   dropped_taxa=dropped, source=source)
+                   dropped_taxa=dropped, source=source, from_relative=table.converted.relative)
 
 
 def single_read_warning(samples: Sequence[str], depths: np.ndarray) -> tuple[str, ...]:

@@ -43,9 +43,19 @@ def column_list(text: str) -> list[str]:
     return [c.strip() for c in text.split(",") if c.strip()]
 
 
-def add_input_options(parser: argparse.ArgumentParser) -> None:
-    """Options that describe how to read the counts table and its metadata."""
-    parser.add_argument("counts", help="abundance table (CSV/TSV, wide or long; .gz allowed)")
+def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = False) -> None:
+    """Options that describe how to read the counts table and its metadata.
+
+    ``optional_counts``: the table may be left out (`driftscreen power` then takes its
+    design from options, and ``--depth`` is the depth of that design).
+    """
+    if optional_counts:
+        parser.add_argument("counts", nargs="?",
+                            help="abundance table (CSV/TSV, wide or long; .gz allowed) whose "
+                                 "design to plan for; or leave it out and give --taxa, "
+                                 "--samples, --interval and --depth")
+    else:
+        parser.add_argument("counts", help="abundance table (CSV/TSV, wide or long; .gz allowed)")
     group = parser.add_argument_group("input")
     group.add_argument("--metadata", metavar="FILE", help="sample metadata table (CSV/TSV)")
     group.add_argument("--sample-id", metavar="COL",
@@ -58,7 +68,9 @@ def add_input_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument("--depth-by", metavar="COL",
                        help="metadata column with each sample's sequencing depth (reads)")
     group.add_argument("--depth", metavar="READS", type=positive_float,
-                       help="one sequencing depth for every sample (relative-abundance tables)")
+                       help="one sequencing depth for every sample (relative-abundance tables)"
+                            + ("; without COUNTS: median reads per sample of the design"
+                               if optional_counts else ""))
     group.add_argument("--abundance", choices=["auto", "counts", "fraction", "percent"],
                        default="auto", help="what the table holds (default: detect)")
     group.add_argument("--remainder", choices=["auto", "pool", "renormalise"], default="auto",
@@ -159,6 +171,7 @@ def add_test(sub: argparse._SubParsersAction) -> None:
                    help="which dataset to test when the table holds several")
     add_calibration_options(p)
     p.add_argument("--output", metavar="FILE", help="also write the report to FILE")
+    add_detectable_option(p)
     p.set_defaults(handler=run_test)
 
 
@@ -167,7 +180,8 @@ def run_test(args: argparse.Namespace) -> int:
 
     dataset = choose_dataset(read_input(args), args.dataset, args.counts)
     report = test_command(dataset, replicates=args.replicates, groupings=args.groupings,
-                          seed=args.seed, jobs=args.jobs, output=args.output)
+                          seed=args.seed, jobs=args.jobs, output=args.output,
+                          detectable=args.detectable, messages=sys.stderr)
     sys.stdout.write(report)
     return 0
 
@@ -194,6 +208,7 @@ def add_screen(sub: argparse._SubParsersAction) -> None:
                    help="address of a running Dask scheduler (with --backend dask; without "
                         "it a local cluster of --jobs workers is started)")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    add_detectable_option(p)
     p.set_defaults(handler=run_screen)
 
 
@@ -205,13 +220,102 @@ def run_screen(args: argparse.Namespace) -> int:
             args.counts, args.metadata, out=Path(args.out), intake=intake_options(args),
             replicates=args.replicates, groupings=args.groupings, seed=args.seed,
             jobs=args.jobs, backend=args.backend, scheduler=args.scheduler,
-            messages=None if args.quiet else sys.stderr)
+            messages=None if args.quiet else sys.stderr, detectable=args.detectable)
     except KeyboardInterrupt:
         print(f"driftscreen: interrupted; finished datasets are kept in {args.out}: run the "
               "same command again to go on", file=sys.stderr)
         return 130
     for path in paths:
         print(path)
+    return 0
+
+
+# ----------------------------------------------------------------------------- power
+def add_detectable_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--detectable", action="store_true",
+                        help="for a dataset where neutrality is not rejected, add a note on "
+                             "the weakest logistic niche structure its design detects with "
+                             "80%% power (a quick power run; takes time)")
+
+
+def add_power(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("power", help="power and minimum detectable niche strength of a design",
+                       description="Simulate niche communities of increasing strength with a "
+                                   "design (a dataset's, or one given by numbers), run the "
+                                   "full calibrated test on each, and report the power of "
+                                   "every statistic and the weakest strength detected with "
+                                   "80% power.")
+    add_input_options(p, optional_counts=True)
+    p.add_argument("--dataset", metavar="NAME",
+                   help="which dataset's design to use when the table holds several")
+    group = p.add_argument_group("design by numbers (instead of COUNTS)")
+    group.add_argument("--taxa", metavar="K", type=positive_int, help="number of taxa")
+    group.add_argument("--samples", metavar="T", type=positive_int,
+                       help="samples per dataset (time points, or replicate communities)")
+    group.add_argument("--interval", metavar="D", type=positive_float,
+                       help="days between samples (the mean, with --irregular)")
+    group.add_argument("--irregular", action="store_true",
+                       help="gamma-distributed gaps with mean --interval")
+    group.add_argument("--snapshot", action="store_true",
+                       help="replicate communities observed once, no time axis")
+    group.add_argument("--depth-spread", metavar="S", type=nonnegative_float,
+                       help="standard deviation of log depth across samples (default 0)")
+    group = p.add_argument_group("alternative")
+    group.add_argument("--alternative", choices=["logistic", "lotka-volterra"],
+                       default="logistic",
+                       help="niche model: independent stochastic logistic taxa (strength = "
+                            "environmental noise sigma) or a competitive Lotka-Volterra "
+                            "community (strength = mean competition); default logistic")
+    group.add_argument("--strengths", metavar="S1,S2,...",
+                       help="grid of strengths (default: 1e-4,3e-4,1e-3,...,1 for "
+                            "logistic; 0.01,0.03,0.1,0.2,...,1 for lotka-volterra); add 0, "
+                            "the neutral limit, to see the false-positive rate")
+    group.add_argument("--timescale", metavar="DAYS", type=positive_float, default=1.0,
+                       help="generation time of the niche dynamics in days (default 1)")
+    group.add_argument("--noise", metavar="SIGMA", type=float,
+                       help="environmental noise of the lotka-volterra community (default 0)")
+    group = p.add_argument_group("simulation and calibration")
+    group.add_argument("--datasets", metavar="N", type=positive_int, default=50,
+                       help="simulated datasets per strength (default 50)")
+    group.add_argument("--replicates", metavar="B", type=positive_int, default=199,
+                       help="neutral replicates per test (default 199)")
+    group.add_argument("--groupings", metavar="R", type=positive_int, default=200,
+                       help="random groupings of taxa for regrouping_invariance (default 200)")
+    group.add_argument("--seed", metavar="S", type=int, default=0,
+                       help="master random seed (default 0)")
+    group.add_argument("--jobs", metavar="J", type=positive_int, default=1,
+                       help="worker processes (results do not depend on it; default 1)")
+    group.add_argument("--alpha", metavar="A", type=float, default=0.05,
+                       help="level of the tests (default 0.05)")
+    p.add_argument("--output", metavar="FILE", help="also write the report to FILE")
+    p.add_argument("--table", metavar="FILE",
+                   help="write power per strength and statistic as a TSV table")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    p.set_defaults(handler=run_power)
+
+
+def run_power(args: argparse.Namespace) -> int:
+    from driftscreen.commands import choose_dataset, power_command, power_design
+
+    dataset = None
+    if args.counts is not None:
+        dataset = choose_dataset(read_input(args), args.dataset, args.counts)
+    elif args.metadata is not None or args.dataset is not None:
+        option = "--metadata" if args.metadata is not None else "--dataset"
+        raise InputError("needs a counts table", file=f"option {option}",
+                         fix=f"give COUNTS too, or drop {option} and describe the design "
+                             "with --taxa, --samples, --interval, --depth")
+    design = power_design(dataset, n_taxa=args.taxa, n_samples=args.samples,
+                          interval=args.interval, irregular=args.irregular,
+                          snapshot=args.snapshot, depth=None if dataset else args.depth,
+                          depth_spread=args.depth_spread)
+    report = power_command(design, alternative=args.alternative, strengths=args.strengths,
+                           n_datasets=args.datasets, replicates=args.replicates,
+                           groupings=args.groupings, seed=args.seed, jobs=args.jobs,
+                           alpha=args.alpha, timescale=args.timescale, noise=args.noise,
+                           output=args.output, table=args.table,
+                           messages=None if args.quiet else sys.stderr)
+    sys.stdout.write(report)
     return 0
 
 
@@ -248,6 +352,7 @@ def build_parser() -> argparse.ArgumentParser:
     add_demo(sub)
     add_test(sub)
     add_screen(sub)
+    add_power(sub)
     add_simulate(sub)
     return parser
 

@@ -5,9 +5,10 @@ from __future__ import annotations
 import inspect
 import time
 from collections.abc import Mapping, Sequence
+from dataclasses import replace
 from datetime import datetime
 from pathlib import Path
-from typing import Any, TextIO
+from typing import TYPE_CHECKING, Any, TextIO
 
 from driftscreen import seeds
 from driftscreen.dataset import Dataset
@@ -16,6 +17,11 @@ from driftscreen.files import atomic_write_text
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import simulate
 from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
+
+if TYPE_CHECKING:
+    from driftscreen.power import PowerDesign
+    from driftscreen.screen import ScreenResult
+    from driftscreen.store import ResultStore
 
 COUNTS_FILE = "counts.tsv"
 METADATA_FILE = "metadata.tsv"
@@ -80,12 +86,25 @@ def choose_dataset(datasets: Sequence[Dataset], name: str | None, source: str) -
 
 
 def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int, jobs: int,
-                 output: str | None = None) -> str:
-    """`driftscreen test`: the report text (also written to ``output`` if given)."""
-    from driftscreen.calibrate import neutrality_test
+                 output: str | None = None, detectable: bool = False,
+                 messages: TextIO | None = None) -> str:
+    """`driftscreen test`: the report text (also written to ``output`` if given).
+
+    With ``detectable``, a dataset whose combined test does not reject gets a note on what
+    its design could have detected (:func:`driftscreen.power.detectable_line`).
+    """
+    from driftscreen.calibrate import COMBINED, CalibrationSettings, neutrality_test
+    from driftscreen.power import detectable_line, with_detectable_line
+    from driftscreen.report.text import verdict_word
 
     result = neutrality_test(dataset, replicates=replicates, groupings=groupings, seed=seed,
                              jobs=jobs)
+    if detectable and verdict_word(result.statistics[COMBINED].pvalue) == "not rejected":
+        if messages is not None:
+            print("driftscreen: not rejected; a quick power run estimates what this design "
+                  "can detect", file=messages, flush=True)
+        settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
+        result = with_detectable_line(result, detectable_line(dataset, settings, jobs=jobs))
     report = result.summary()
     if output:
         atomic_write_text(output, report)
@@ -110,7 +129,7 @@ def intake_defaults() -> dict[str, Any]:
 def screen_command(counts: str, metadata: str | None = None, *, out: Path,
                    intake: Mapping[str, Any], replicates: int, groupings: int, seed: int,
                    jobs: int = 1, backend: str = "loky", scheduler: str | None = None,
-                   messages: TextIO | None = None) -> list[Path]:
+                   messages: TextIO | None = None, detectable: bool = False) -> list[Path]:
     """`driftscreen screen`: test every dataset of a table, resumably; write the outputs.
 
     Parameters
@@ -128,6 +147,9 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
         not depend on them.
     messages:
         Stream for the reuse notice and progress; ``None`` is silent.
+    detectable:
+        Add to every dataset that the screen does not reject a note on what its design
+        could have detected (see :func:`add_detectable_lines`); part of the fingerprint.
 
     Returns
     -------
@@ -139,6 +161,7 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
     from driftscreen.report.tables import parameters_tsv, results_json, results_tsv
     from driftscreen.report.text import screen_report
     from driftscreen.screen import check_backend, execution_backend, screen, screen_statistics
+    from driftscreen.power import detectable_settings
     from driftscreen.store import ResultStore, settings_fingerprint
 
     started = time.monotonic()
@@ -152,9 +175,13 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
         intake={k: v for k, v in intake.items() if k != "taxon_map"},
         replicates=replicates, groupings=groupings, seed=seed,
         statistics=screen_statistics(groupings))
+    if detectable:
+        fingerprint["detectable"] = detectable_settings()
     store = ResultStore.open(out, fingerprint)
     with execution_backend(backend, scheduler, jobs) as n_jobs:
         run = screen(datasets, settings, jobs=n_jobs, store=store, messages=messages)
+        if detectable:
+            run = add_detectable_lines(run, datasets, n_jobs, store, messages)
     date = datetime.now().astimezone().strftime("%Y-%m-%d %H:%M:%S %Z")
     texts = {
         RESULTS_FILE: results_tsv(run),
@@ -164,3 +191,129 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
                                    date=date),
     }
     return [atomic_write_text(Path(out) / name, text) for name, text in texts.items()]
+
+
+def add_detectable_lines(run: ScreenResult, datasets: Sequence[Dataset], jobs: int,
+                         store: ResultStore | None, messages: TextIO | None = None
+                         ) -> ScreenResult:
+    """Add the detectable line to every analysed dataset the screen does not reject.
+
+    "Not rejected" is the screen's verdict: combined q-value above 0.05. Each line comes
+    from a quick power run seeded by the master seed and the dataset's name, so it is
+    the same on every run; the dataset's record is saved again with it. Datasets reused
+    from the store that already carry a line keep it, so a resumed screen computes only
+    the lines still missing and its outputs equal those of an uninterrupted run.
+    """
+    from driftscreen.calibrate import COMBINED
+    from driftscreen.power import detectable_line, has_detectable_line, with_detectable_line
+    from driftscreen.report.text import verdict_word
+    from driftscreen.screen import keep
+
+    by_name = {dataset.name: dataset for dataset in datasets}
+    outcomes = list(run.outcomes)
+    pending = [index for index, outcome in enumerate(outcomes)
+               if outcome.result is not None and not has_detectable_line(outcome.result)
+               and verdict_word(run.qvalue(index, COMBINED)) == "not rejected"]
+    for count, index in enumerate(pending, 1):
+        outcome = outcomes[index]
+        if messages is not None:
+            print(f"driftscreen: what the design can detect, {count}/{len(pending)}: "
+                  f"dataset '{outcome.name}'", file=messages, flush=True)
+        line = detectable_line(by_name[outcome.name], run.settings, jobs=jobs)
+        result = with_detectable_line(outcome.result, line)
+        outcomes[index] = keep(replace(outcome, result=result), store)
+    return replace(run, outcomes=tuple(outcomes))
+
+
+def power_design(dataset: Dataset | None, *, n_taxa: int | None, n_samples: int | None,
+                 interval: float | None, irregular: bool, snapshot: bool,
+                 depth: float | None, depth_spread: float | None) -> PowerDesign:
+    """The design of `driftscreen power`: a dataset's, or one from the design options.
+
+    Raises
+    ------
+    InputError
+        Both or neither given, an incomplete or contradictory set of design options, or
+        a design too small to analyse.
+    """
+    from driftscreen.power import PowerDesign
+    from driftscreen.screen import (MIN_SAMPLES_SNAPSHOT, MIN_SAMPLES_TIME_SERIES, MIN_TAXA,
+                                    unanalysable_reason)
+
+    given = {"--taxa": n_taxa, "--samples": n_samples, "--interval": interval,
+             "--irregular": irregular or None, "--snapshot": snapshot or None,
+             "--depth-spread": depth_spread}
+    named = [option for option, value in given.items() if value is not None]
+    if dataset is not None:
+        if named:
+            raise InputError("design options cannot be combined with a counts table",
+                             file=f"option {named[0]}",
+                             fix="give either COUNTS (and intake options) or the design "
+                                 "options --taxa, --samples, --interval, --depth")
+        reason = unanalysable_reason(dataset)
+        if reason:
+            raise InputError(f"dataset '{dataset.name}' is {reason}",
+                             file=", ".join(dataset.source) or None,
+                             fix="choose another dataset with --dataset")
+        return PowerDesign.from_dataset(dataset)
+    missing = [option for option, value in (("--taxa", n_taxa), ("--samples", n_samples),
+                                            ("--depth", depth)) if value is None]
+    if interval is None and not snapshot:
+        missing.append("--interval (or --snapshot)")
+    if missing:
+        raise InputError("no design given: missing " + ", ".join(missing),
+                         file="command power",
+                         fix="give a counts table (COUNTS --metadata FILE ...) or all of "
+                             "--taxa K --samples T --interval D --depth N")
+    if snapshot and (interval is not None or irregular):
+        option = "--interval" if interval is not None else "--irregular"
+        raise InputError("a snapshot design has no sampling times", file=f"option {option}",
+                         fix="drop it, or drop --snapshot")
+    minimum = MIN_SAMPLES_SNAPSHOT if snapshot else MIN_SAMPLES_TIME_SERIES
+    if n_samples < minimum:
+        raise InputError(f"{n_samples} samples are too few to analyse",
+                         file="option --samples", fix=f"give at least {minimum}")
+    if n_taxa < MIN_TAXA:
+        raise InputError(f"{n_taxa} taxa are too few to analyse", file="option --taxa",
+                         fix=f"give at least {MIN_TAXA}")
+    return PowerDesign.from_numbers(n_taxa=n_taxa, n_samples=n_samples,
+                                    interval=None if snapshot else interval,
+                                    irregular=irregular, depth=max(int(round(depth)), 1),
+                                    depth_spread=depth_spread or 0.0)
+
+
+def power_command(design: PowerDesign, *, alternative: str = "logistic",
+                  strengths: str | None = None, n_datasets: int = 50, replicates: int = 199,
+                  groupings: int = 200, seed: int = 0, jobs: int = 1, alpha: float = 0.05,
+                  timescale: float = 1.0, noise: float | None = None,
+                  output: str | None = None, table: str | None = None,
+                  messages: TextIO | None = None) -> str:
+    """`driftscreen power`: the power report (also written to ``output``; the TSV table
+    of :meth:`driftscreen.power.PowerResult.to_tsv` to ``table``).
+
+    ``strengths`` is the comma-separated grid as typed (default: the alternative's grid);
+    ``noise`` is the environmental noise of the lotka-volterra alternative (default 0).
+    """
+    from driftscreen.power import NicheAlternative, parse_strengths, power_curve
+
+    if not 0.0 < alpha < 1.0:
+        raise InputError(f"alpha {alpha:g} is not between 0 and 1", file="option --alpha",
+                         fix="give a level such as 0.05")
+    if noise is not None and alternative != "lotka-volterra":
+        raise InputError("--noise is a setting of the lotka-volterra alternative",
+                         file="option --noise",
+                         fix="drop it, or add --alternative lotka-volterra")
+    if noise is not None and not 0.0 <= noise < 2.0:
+        raise InputError(f"noise {noise:g} is not in [0, 2)", file="option --noise",
+                         fix="give a value such as 0.01")
+    niche = NicheAlternative(alternative, timescale=timescale, noise=noise or 0.0)
+    grid = None if strengths is None else parse_strengths(strengths, niche)
+    result = power_curve(design, niche, grid, n_datasets=n_datasets, replicates=replicates,
+                         groupings=groupings, seed=seed, jobs=jobs, alpha=alpha,
+                         messages=messages)
+    report = result.summary()
+    if output:
+        atomic_write_text(output, report)
+    if table:
+        atomic_write_text(table, result.to_tsv())
+    return report

@@ -17,6 +17,7 @@ from scipy import integrate, stats
 from scipy.special import digamma, ndtr
 
 from driftscreen.neutral.lines_of_descent import (
+    CorrectedNormal,
     LinesOfDescentSampler,
     corrected_normal_moments,
     lines_of_descent_mean_variance,
@@ -326,3 +327,29 @@ def test_invalid_parameters_are_rejected():
         lines_of_descent_table(0.0, 0.1)
     with pytest.raises(ValueError):
         lines_of_descent_table(1.0, -0.1)
+
+
+def test_direct_corrected_normal_equals_table_inversion() -> None:
+    """The closed-form inverse of the corrected normal gives the same A as searching its
+    table, uniform by uniform (both invert P(A <= m) = Phi(w - g (w^2 - 1)/6))."""
+    theta, tau = 50.0, 2e-4
+    table = lines_of_descent_table(theta, tau)
+    assert table.method == "normal"
+    mean, variance, skew = corrected_normal_moments(theta, tau)
+    direct = CorrectedNormal(mean, np.sqrt(variance - 1.0 / 12.0), skew)
+    uniforms = np.random.default_rng(0).random(50_000)
+    from_table = np.searchsorted(table.cdf, uniforms, side="right") + table.offset
+    assert np.array_equal(direct.draw(50_000, np.random.default_rng(0)), from_table)
+
+
+def test_huge_line_counts_are_drawn_without_a_table() -> None:
+    """theta = 4e9 over short intervals (a near-constant community) needs ~1e9 lines: the
+    sampler must not tabulate them; the draws keep the Griffiths (1984) mean."""
+    taus = np.array([1e-9, 2e-9, 5e-9])
+    sampler = LinesOfDescentSampler(4e9, taus)
+    assert isinstance(sampler.tables[0], CorrectedNormal)
+    assert all(isinstance(law, CorrectedNormal) or law.pmf.size < 20_000
+               for law in sampler.tables)
+    draws = sampler.draw(0, 10_000, np.random.default_rng(1))
+    mean, variance = lines_of_descent_mean_variance(4e9, 1e-9)
+    assert abs(draws.mean() - mean) < 5 * np.sqrt(variance / 10_000) + 1

@@ -134,12 +134,16 @@ def median_log_bias(estimate: float, replicates: np.ndarray) -> float:
 
 
 def bias_corrected_model(model: NeutralModel, design: Design,
-                         stream: np.random.SeedSequence) -> NeutralModel:
+                         stream: np.random.SeedSequence, clipped: bool = False) -> NeutralModel:
     """The model with theta and rate corrected for the median bias of their estimators.
 
     A pilot of :data:`PILOT_REPLICATES` replicates is simulated at ``model`` and re-fitted;
     each parameter is divided by the factor by which the estimator overshot its median.
+    A clipped fit (theta at the end of its range: no drift variance detectable) is left
+    as it is: there is no bias to measure at a boundary.
     """
+    if clipped:
+        return model
     pilot = fit_batch(simulate(model, design, PILOT_REPLICATES, seeds.generator(stream)), design)
     theta = model.theta * np.exp(-median_log_bias(model.theta, pilot.theta))
     rate = None
@@ -163,7 +167,8 @@ def plan_calibration(dataset: Dataset, settings: CalibrationSettings,
     observed_fit = fit_batch(dataset.counts[None], design)
     observed = compute_statistics(statistics, dataset.counts[None], design, observed_fit,
                                   statistics_stream)[0]
-    model = bias_corrected_model(observed_fit.model(0), design, seeds.substream(root, seeds.PILOT))
+    model = bias_corrected_model(observed_fit.model(0), design, seeds.substream(root, seeds.PILOT),
+                                 bool(observed_fit.clipped[0]))
     size = chunk_size_for(design, dataset.n_taxa)
     starts = range(0, settings.replicates, size)
     tasks = tuple(

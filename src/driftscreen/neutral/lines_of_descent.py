@@ -38,6 +38,9 @@ SERIES_TERM_FLOOR = -40.0
 """Truncate a series once its terms decrease and fall below exp(-40) in absolute value."""
 SERIES_MAX_TERMS = 1 << 14
 _GAUSS_LEGENDRE = np.polynomial.legendre.leggauss(64)
+#: Above this variance of A (sd ~ 3000 lines) the corrected normal is drawn directly
+#: rather than tabulated (a table would hold ~15 sd of entries per distinct interval).
+DIRECT_NORMAL_VARIANCE = 1e7
 _EXTENDED = np.longdouble
 
 
@@ -340,11 +343,47 @@ def lines_of_descent_pmf(theta: float, tau: float, *, tol: float = 1e-12) -> np.
     return np.concatenate([np.zeros(table.offset), table.pmf])
 
 
+@dataclass(frozen=True)
+class CorrectedNormal:
+    """The corrected normal law of ``A_inf(tau)``, drawn directly instead of tabulated.
+
+    For very large numbers of lines (tiny tau: a huge theta with a short interval) a
+    table would need millions of entries per interval. The same inverse Cornish-Fisher
+    approximation as :func:`_normal_table` is then inverted in closed form: with
+    ``z = Phi^-1(U)``, ``w`` solves ``w - g (w^2 - 1) / 6 = z`` and
+    ``A = ceil(mean - 1/2 + sd w)`` is the smallest ``m`` with ``P(A <= m) >= U``.
+    """
+
+    mean: float
+    sd: float
+    skew: float
+
+    def draw(self, size: int, rng: np.random.Generator) -> np.ndarray:
+        z = ndtri(rng.random(size))
+        g = self.skew / 6.0
+        if abs(g) < 1e-12:
+            w = z
+        else:
+            w = (1.0 - np.sqrt(np.maximum(1.0 - 4.0 * g * (z - g), 0.0))) / (2.0 * g)
+        lines = np.ceil(self.mean - 0.5 + self.sd * w)
+        return np.maximum(lines, 0.0).astype(np.int64)
+
+
+def lines_of_descent_law(theta: float, tau: float, tol: float = 1e-12
+                         ) -> LinesOfDescentTable | CorrectedNormal:
+    """A table of ``A_inf(tau)``, or its corrected normal law when that table would be huge."""
+    if lines_of_descent_mean_variance(float(theta), float(tau))[1] <= DIRECT_NORMAL_VARIANCE:
+        return lines_of_descent_table(theta, tau, tol)
+    mean, variance, skew = corrected_normal_moments(float(theta), float(tau))
+    return CorrectedNormal(mean, float(np.sqrt(variance - 1.0 / 12.0)), skew)
+
+
 class LinesOfDescentSampler:
     """Draws ``A_inf(tau_j)`` for a fixed ``theta`` and a list of intervals ``tau_j``.
 
-    The table of each distinct interval length (exact float equality) is computed once
-    and sampled by inverse cdf (``searchsorted``).
+    The law of each distinct interval length (exact float equality) is prepared once:
+    a table sampled by inverse cdf (``searchsorted``), or for very large numbers of lines
+    the corrected normal drawn in closed form (:class:`CorrectedNormal`).
 
     Parameters
     ----------
@@ -358,11 +397,13 @@ class LinesOfDescentSampler:
         taus = np.asarray(taus, dtype=np.float64).ravel()
         distinct, self._table_of_interval = np.unique(taus, return_inverse=True)
         self.theta = float(theta)
-        self.tables = tuple(lines_of_descent_table(self.theta, float(t), tol) for t in distinct)
+        self.tables = tuple(lines_of_descent_law(self.theta, float(t), tol) for t in distinct)
 
     def draw(self, interval_index: int, size: int, rng: np.random.Generator) -> np.ndarray:
         """``size`` independent draws of ``A`` for interval ``interval_index`` (int64)."""
         table = self.tables[self._table_of_interval[interval_index]]
+        if isinstance(table, CorrectedNormal):
+            return table.draw(size, rng)
         if table.pmf.size == 1:
             return np.full(size, table.offset, dtype=np.int64)
         positions = np.searchsorted(table.cdf, rng.random(size), side="right")

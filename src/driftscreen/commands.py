@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import inspect
 import time
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import replace
 from datetime import datetime
 from pathlib import Path
@@ -20,6 +20,7 @@ from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
 
 if TYPE_CHECKING:
     from driftscreen.power import PowerDesign
+    from driftscreen.results import NeutralityResult
     from driftscreen.screen import ScreenResult
     from driftscreen.store import ResultStore
 
@@ -95,6 +96,7 @@ def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int
     """
     from driftscreen.calibrate import COMBINED, CalibrationSettings, neutrality_test
     from driftscreen.power import detectable_line, with_detectable_line
+    from driftscreen.reanalysis import depth_sensitivity_line
     from driftscreen.report.text import verdict_word
 
     result = neutrality_test(dataset, replicates=replicates, groupings=groupings, seed=seed,
@@ -105,6 +107,13 @@ def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int
                   "can detect", file=messages, flush=True)
         settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
         result = with_detectable_line(result, detectable_line(dataset, settings, jobs=jobs))
+    if dataset.from_relative:
+        if messages is not None:
+            print("driftscreen: converted from relative abundances; testing again at a tenfold "
+                  "lower depth", file=messages, flush=True)
+        settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
+        result = replace(result, notes=tuple(result.notes)
+                         + (depth_sensitivity_line(dataset, result, settings),))
     report = result.summary()
     if output:
         atomic_write_text(output, report)
@@ -180,6 +189,7 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
     store = ResultStore.open(out, fingerprint)
     with execution_backend(backend, scheduler, jobs) as n_jobs:
         run = screen(datasets, settings, jobs=n_jobs, store=store, messages=messages)
+        run = add_depth_sensitivity(run, datasets, store, messages)
         if detectable:
             run = add_detectable_lines(run, datasets, n_jobs, store, messages)
     date = datetime.now().astimezone().strftime("%Y-%m-%d %H:%M:%S %Z")
@@ -200,27 +210,57 @@ def add_detectable_lines(run: ScreenResult, datasets: Sequence[Dataset], jobs: i
 
     "Not rejected" is the screen's verdict: combined q-value above 0.05. Each line comes
     from a quick power run seeded by the master seed and the dataset's name, so it is
-    the same on every run; the dataset's record is saved again with it. Datasets reused
-    from the store that already carry a line keep it, so a resumed screen computes only
-    the lines still missing and its outputs equal those of an uninterrupted run.
+    the same on every run.
     """
     from driftscreen.calibrate import COMBINED
-    from driftscreen.power import detectable_line, has_detectable_line, with_detectable_line
+    from driftscreen.power import DETECTABLE_PREFIX, detectable_line
     from driftscreen.report.text import verdict_word
+
+    return add_notes(
+        run, datasets, store, messages, DETECTABLE_PREFIX, "what the design can detect",
+        wanted=lambda index: verdict_word(run.qvalue(index, COMBINED)) == "not rejected",
+        line_for=lambda dataset, _: detectable_line(dataset, run.settings, jobs=jobs))
+
+
+def add_depth_sensitivity(run: ScreenResult, datasets: Sequence[Dataset],
+                          store: ResultStore | None, messages: TextIO | None = None
+                          ) -> ScreenResult:
+    """Add to every dataset converted from relative abundances how its p-values move
+    when the stated depth is ten times lower (:mod:`driftscreen.reanalysis`)."""
+    from driftscreen.reanalysis import DEPTH_SENSITIVITY_PREFIX, depth_sensitivity_line
+
+    relative = {dataset.name for dataset in datasets if dataset.from_relative}
+    return add_notes(
+        run, datasets, store, messages, DEPTH_SENSITIVITY_PREFIX, "depth sensitivity",
+        wanted=lambda index: run.outcomes[index].name in relative,
+        line_for=lambda dataset, result: depth_sensitivity_line(dataset, result, run.settings))
+
+
+def add_notes(run: ScreenResult, datasets: Sequence[Dataset], store: ResultStore | None,
+              messages: TextIO | None, prefix: str, label: str, *,
+              wanted: Callable[[int], bool],
+              line_for: Callable[[Dataset, NeutralityResult], str]) -> ScreenResult:
+    """Append a computed line to the notes of the analysed datasets that want one.
+
+    Datasets reused from the store that already carry a line starting with ``prefix``
+    keep it, and each updated record is saved again, so a resumed screen computes only
+    the lines still missing and its outputs equal those of an uninterrupted run.
+    """
     from driftscreen.screen import keep
 
     by_name = {dataset.name: dataset for dataset in datasets}
     outcomes = list(run.outcomes)
     pending = [index for index, outcome in enumerate(outcomes)
-               if outcome.result is not None and not has_detectable_line(outcome.result)
-               and verdict_word(run.qvalue(index, COMBINED)) == "not rejected"]
+               if outcome.result is not None
+               and not any(note.startswith(prefix) for note in outcome.result.notes)
+               and wanted(index)]
     for count, index in enumerate(pending, 1):
         outcome = outcomes[index]
         if messages is not None:
-            print(f"driftscreen: what the design can detect, {count}/{len(pending)}: "
-                  f"dataset '{outcome.name}'", file=messages, flush=True)
-        line = detectable_line(by_name[outcome.name], run.settings, jobs=jobs)
-        result = with_detectable_line(outcome.result, line)
+            print(f"driftscreen: {label}, {count}/{len(pending)}: dataset '{outcome.name}'",
+                  file=messages, flush=True)
+        line = line_for(by_name[outcome.name], outcome.result)
+        result = replace(outcome.result, notes=tuple(outcome.result.notes) + (line,))
         outcomes[index] = keep(replace(outcome, result=result), store)
     return replace(run, outcomes=tuple(outcomes))
 

@@ -21,6 +21,8 @@ from driftscreen.results import NeutralityResult
 LOWER_DEPTH_FACTOR = 0.1
 #: Fewest reads a sample keeps at the lower depth.
 MIN_READS = 2
+#: Every depth-sensitivity note starts with this.
+DEPTH_SENSITIVITY_PREFIX = "depth sensitivity:"
 
 
 def largest_remainder_rows(shares: np.ndarray, totals: np.ndarray) -> np.ndarray:
@@ -53,24 +55,21 @@ def at_lower_depth(dataset: Dataset, factor: float = LOWER_DEPTH_FACTOR) -> Data
                    dropped_taxa=dataset.dropped_taxa + int(np.count_nonzero(~present)))
 
 
-def depth_sensitivity_line(stated: NeutralityResult, lower: NeutralityResult,
+def depth_sensitivity_line(dataset: Dataset, stated: NeutralityResult,
+                           settings: CalibrationSettings,
                            factor: float = LOWER_DEPTH_FACTOR) -> str:
-    """One sentence: the p-values at the stated depth and at the lower one."""
+    """One sentence: the p-values at the stated depth and at ``factor`` x that depth.
+
+    The lower-depth test uses the same settings and seed, so it is reproducible.
+    """
+    lower = neutrality_test(at_lower_depth(dataset, factor), replicates=settings.replicates,
+                            groupings=settings.groupings, seed=settings.seed)
     pairs = [f"{name} {stated.statistics[name].pvalue:.3g} -> {lower.statistics[name].pvalue:.3g}"
              for name in stated.statistics if name in lower.statistics]
-    same = ((stated[COMBINED].pvalue <= 0.05) == (lower[COMBINED].pvalue <= 0.05))
+    same = (stated[COMBINED].pvalue <= 0.05) == (lower[COMBINED].pvalue <= 0.05)
     verdict = ("the verdict at alpha = 0.05 is the same at both depths" if same else
                "the verdict at alpha = 0.05 changes with the depth: it hinges on the stated "
-               "depth, which you should justify")
-    return (f"depth sensitivity: converted at {factor:g} x the stated depth, the p-values move "
-            f"as follows (stated -> lower): {'; '.join(pairs)}; {verdict}.")
-
-
-def with_depth_sensitivity(dataset: Dataset, result: NeutralityResult,
-                           settings: CalibrationSettings) -> NeutralityResult:
-    """``result`` with the depth-sensitivity line added to its notes (relative data only)."""
-    if not dataset.from_relative:
-        return result
-    lower = neutrality_test(at_lower_depth(dataset), replicates=settings.replicates,
-                            groupings=settings.groupings, seed=settings.seed)
-    return replace(result, notes=result.notes + (depth_sensitivity_line(result, lower),))
+               "depth, which should be justified")
+    return (f"{DEPTH_SENSITIVITY_PREFIX} with the counts converted at {factor:g} x the stated "
+            f"depth, the p-values move as follows (stated -> lower): {'; '.join(pairs)}; "
+            f"{verdict}.")

@@ -118,12 +118,14 @@ def add_calibration_options(parser: argparse.ArgumentParser, replicates: int = 9
 
 # ----------------------------------------------------------------------------- simulate
 def add_simulate(sub: argparse._SubParsersAction) -> None:
-    p = sub.add_parser("simulate", help="write a neutral community dataset (counts + metadata)",
+    p = sub.add_parser("simulate", help="write simulated community datasets (counts + metadata)",
                        description="Simulate neutral communities (drift plus immigration, "
-                                   "sequenced at a given depth) and write a counts table and a "
-                                   "metadata table that `driftscreen test` and `screen` read.")
+                                   "sequenced at a given depth), or niche communities, and "
+                                   "write a counts table and a metadata table that `driftscreen "
+                                   "test` and `screen` read, and truth.tsv with the parameters "
+                                   "behind them.")
     p.add_argument("--out", metavar="DIR", required=True,
-                   help="folder for counts.tsv and metadata.tsv (created if needed)")
+                   help="folder for counts.tsv, metadata.tsv and truth.tsv (created if needed)")
     p.add_argument("--taxa", type=positive_int, default=40, help="number of taxa (default 40)")
     p.add_argument("--samples", type=positive_int, default=100,
                    help="samples per dataset (default 100)")
@@ -144,6 +146,13 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
                         "(default 0.2)")
     p.add_argument("--datasets", type=positive_int, default=1,
                    help="number of datasets written into the one table (default 1)")
+    p.add_argument("--model", choices=["neutral", "logistic", "lotka-volterra"],
+                   default="neutral",
+                   help="neutral (default), or a niche alternative: the stochastic logistic "
+                        "model or the noisy Lotka-Volterra community (see docs/power.md)")
+    p.add_argument("--strength", type=nonnegative_float,
+                   help="niche strength for --model logistic (sigma) or lotka-volterra "
+                        "(mean competition); default: the model's own")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.set_defaults(handler=run_simulate)
 
@@ -151,13 +160,15 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
 def run_simulate(args: argparse.Namespace) -> int:
     from driftscreen.commands import simulate_command
 
-    counts_path, metadata_path = simulate_command(
+    if args.strength is not None and args.model == "neutral":
+        raise InputError("a strength applies only to a niche model", place="option --strength",
+                         fix="add --model logistic or --model lotka-volterra, or drop --strength")
+    paths = simulate_command(
         out=Path(args.out), n_taxa=args.taxa, n_samples=args.samples,
         interval=None if args.snapshot else args.interval, irregular=args.irregular,
         depth=args.depth, depth_spread=args.depth_spread, theta=args.theta, rate=args.rate,
-        n_datasets=args.datasets, seed=args.seed)
-    print(counts_path)
-    print(metadata_path)
+        n_datasets=args.datasets, seed=args.seed, model=args.model, strength=args.strength)
+    print("\n".join(str(path) for path in paths))
     return 0
 
 

@@ -32,23 +32,49 @@ RESULTS_JSON_FILE = "results.json"
 REPORT_FILE = "report.txt"
 
 
+SIMULATION_MODELS = ("neutral", "logistic", "lotka-volterra")
+TRUTH_FILE = "truth.tsv"
+
+
+def simulated_dataset(name: str, spec: DesignSpec, n_taxa: int, seed: int, *,
+                      model: str = "neutral", theta: float = 50.0, rate: float = 0.2,
+                      strength: float | None = None) -> tuple[Dataset, list[dict]]:
+    """One simulated dataset from its own stream (keyed by ``seed`` and ``name``), and the
+    truth behind it: one row per taxon (the metacommunity composition of a neutral dataset).
+
+    ``model`` is ``"neutral"`` (theta, rate) or a niche model of :mod:`driftscreen.niche`
+    with its default parameters and, if given, its ``strength``.
+    """
+    from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic
+
+    rng = seeds.generator(seeds.dataset_stream(seed, name))
+    design = spec.draw(rng)
+    if model == "neutral":
+        null = NeutralModel(metacommunity(n_taxa, rng), theta,
+                            rate if design.is_time_series else None)
+        counts = simulate(null, design, 1, rng)[0]
+        note = (f"simulated neutral community: theta {theta:g}"
+                + (f", rate {rate:g} per day" if design.is_time_series else ""))
+        truth = [{"dataset": name, "model": model, "taxon": f"taxon_{i + 1:0{len(str(n_taxa))}d}",
+                  "p": repr(float(p_i)), "theta": repr(theta),
+                  "rate": repr(rate) if design.is_time_series else "", "strength": ""}
+                 for i, p_i in enumerate(null.p)]
+    else:
+        niche_class = StochasticLogistic if model == "logistic" else NoisyLotkaVolterra
+        niche = niche_class(n_taxa) if strength is None else niche_class(n_taxa, strength=strength)
+        counts = niche.simulate(design, 1, rng)[0]
+        note = f"simulated {model} niche community: strength {niche.strength:g}"
+        truth = [{"dataset": name, "model": model, "taxon": "", "p": "", "theta": "",
+                  "rate": "", "strength": repr(float(niche.strength))}]
+    return as_dataset(name, counts, design, (note + f", seed {seed}",)), truth
+
+
 def neutral_collection(n_datasets: int, spec: DesignSpec, n_taxa: int, theta: float,
                        rate: float, seed: int, prefix: str = "community") -> list[Dataset]:
     """``n_datasets`` independent neutral datasets, each from its own seeded stream."""
     width = len(str(n_datasets))
-    datasets = []
-    for index in range(n_datasets):
-        name = f"{prefix}_{index + 1:0{width}d}"
-        rng = seeds.generator(seeds.dataset_stream(seed, name))
-        design = spec.draw(rng)
-        model = NeutralModel(metacommunity(n_taxa, rng), theta,
-                             rate if design.is_time_series else None)
-        counts = simulate(model, design, 1, rng)[0]
-        note = (f"simulated neutral community: theta {theta:g}"
-                + (f", rate {rate:g} per day" if design.is_time_series else "")
-                + f", seed {seed}")
-        datasets.append(as_dataset(name, counts, design, (note,)))
-    return datasets
+    return [simulated_dataset(f"{prefix}_{index + 1:0{width}d}", spec, n_taxa, seed,
+                              theta=theta, rate=rate)[0] for index in range(n_datasets)]
 
 
 def write_collection(datasets: Sequence[Dataset], out: Path) -> tuple[Path, Path]:
@@ -63,11 +89,21 @@ def write_collection(datasets: Sequence[Dataset], out: Path) -> tuple[Path, Path
 
 def simulate_command(out: Path, *, n_taxa: int, n_samples: int, interval: float | None,
                      irregular: bool, depth: int, depth_spread: float, theta: float,
-                     rate: float, n_datasets: int, seed: int) -> tuple[Path, Path]:
-    """`driftscreen simulate`: write neutral datasets that intake reads back."""
+                     rate: float, n_datasets: int, seed: int, model: str = "neutral",
+                     strength: float | None = None) -> tuple[Path, Path, Path]:
+    """`driftscreen simulate`: write datasets that intake reads back, and their truth."""
     spec = DesignSpec(n_samples=n_samples, interval=interval, irregular=irregular,
                       depth=depth, depth_spread=depth_spread)
-    return write_collection(neutral_collection(n_datasets, spec, n_taxa, theta, rate, seed), out)
+    width = len(str(n_datasets))
+    made = [simulated_dataset(f"community_{index + 1:0{width}d}", spec, n_taxa, seed,
+                              model=model, theta=theta, rate=rate, strength=strength)
+            for index in range(n_datasets)]
+    counts_path, metadata_path = write_collection([dataset for dataset, _ in made], out)
+    rows = [row for _, truth in made for row in truth]
+    columns = list(rows[0])
+    text = "\t".join(columns) + "\n" + "".join(
+        "\t".join(row[c] for c in columns) + "\n" for row in rows)
+    return counts_path, metadata_path, atomic_write_text(out / TRUTH_FILE, text)
 
 
 def choose_dataset(datasets: Sequence[Dataset], name: str | None, source: str) -> Dataset:

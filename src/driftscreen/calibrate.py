@@ -26,6 +26,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 from joblib import Parallel, delayed
 
 from driftscreen import seeds
@@ -41,6 +42,7 @@ from driftscreen.results import (
 )
 from driftscreen.statistics.base import Statistic
 from driftscreen.statistics.combination import cauchy_combination
+from driftscreen.statistics.fluctuation_scaling import taylor_fit
 from driftscreen.statistics.registry import default_statistics
 
 COMBINED = "combined"
@@ -54,6 +56,8 @@ MAX_BIAS_FACTOR = 4.0
 MIN_CORRELATION_TIMES = 15.0
 #: Budget of count cells (replicates x samples x taxa) per chunk of replicates.
 CHUNK_CELLS = 2_000_000
+#: Significant digits of the numbers kept in the diagnostic tables of a result.
+DIAGNOSTIC_DIGITS = 6
 
 
 @dataclass(frozen=True)
@@ -329,6 +333,81 @@ def summarize_dataset(dataset: Dataset) -> DatasetSummary:
         depth_max=int(design.depths.max()), notes=dataset.notes, warnings=dataset.warnings)
 
 
+def observed_diagnostics(plan: CalibrationPlan) -> dict[str, pd.DataFrame]:
+    """Every statistic's ``diagnose`` table on the observed data, made storable.
+
+    Each runs on the observed counts with the observed fit (the model the observed value
+    of the statistic was computed with) and a generator on the sub-stream its ``compute``
+    had (see :func:`plan_calibration` and :func:`compute_statistics`), so random choices
+    such as the groupings of taxa are the ones behind the observed value.
+    """
+    dataset = plan.dataset
+    stream = seeds.substream(seeds.dataset_stream(plan.settings.seed, dataset.name),
+                             seeds.STATISTICS)
+    tables = {}
+    for j, stat in enumerate(plan.statistics):
+        table = stat.diagnose(dataset.counts, dataset.design, plan.raw_model,
+                              seeds.generator(seeds.substream(stream, j)))
+        tables[stat.name] = storable_table(with_neutral_taylor_line(table), dataset.taxa)
+    return tables
+
+
+def with_neutral_taylor_line(table: pd.DataFrame) -> pd.DataFrame:
+    """Add the Taylor line fitted to the neutral expected variances of the same taxa.
+
+    For a table with ``mean``, ``neutral_variance`` and ``used`` per taxon (the
+    fluctuation-scaling diagnosis), the OLS line of log neutral variance on log mean
+    over the used taxa (Taylor 1961, Nature 189:732) is what neutral drift predicts for
+    this dataset's taxa; its intercept and slope are repeated in every row
+    (``neutral_intercept``, ``neutral_slope``). Other tables are returned as they are.
+    """
+    if not {"mean", "neutral_variance", "used"} <= set(table.columns):
+        return table
+    used = table["used"].to_numpy(dtype=bool)[None]
+    intercept, slope = taylor_fit(table["mean"].to_numpy(dtype=np.float64)[None],
+                                  table["neutral_variance"].to_numpy(dtype=np.float64)[None],
+                                  used)
+    return table.assign(neutral_intercept=intercept[0], neutral_slope=slope[0])
+
+
+def significant_digits(values: np.ndarray, digits: int = DIAGNOSTIC_DIGITS) -> np.ndarray:
+    """Floats rounded to ``digits`` significant digits (decimal), NaN and inf kept."""
+    return np.array([float(format(v, f".{digits - 1}e")) for v in values], dtype=np.float64)
+
+
+def taxon_labels(table: pd.DataFrame, taxa: tuple[str, ...]) -> list[str]:
+    """Taxon ids for the ``taxon`` column indices; a pool of m rare taxa reads "ID +(m-1) rare".
+
+    ``members`` (when present and numeric) counts the taxa pooled in a row, ``taxon`` is
+    then the pool's most abundant member.
+    """
+    members = (table["members"].to_numpy() if "members" in table
+               and pd.api.types.is_integer_dtype(table["members"]) else np.ones(len(table), int))
+    return [taxa[int(i)] + (f" +{int(m) - 1} rare" if m > 1 else "")
+            for i, m in zip(table["taxon"].to_numpy(), members)]
+
+
+def storable_table(table: pd.DataFrame, taxa: tuple[str, ...]) -> pd.DataFrame:
+    """A diagnose table as kept in a result: ids for indices, modest and exact to store.
+
+    ``taxon`` indices become taxon ids (:func:`taxon_labels`); columns of sequences (the
+    member lists of groupings) are dropped; floats keep :data:`DIAGNOSTIC_DIGITS`
+    significant digits, so fresh and stored results are the same numbers.
+    """
+    columns = {}
+    for name in table.columns:
+        column = table[name]
+        if name == "taxon":
+            columns[name] = np.array(taxon_labels(table, taxa), dtype=object)
+        elif pd.api.types.is_bool_dtype(column) or pd.api.types.is_integer_dtype(column):
+            columns[name] = column.to_numpy()
+        elif pd.api.types.is_float_dtype(column):
+            columns[name] = significant_digits(column.to_numpy(dtype=np.float64))
+        elif all(isinstance(value, str) for value in column):
+            columns[name] = column.to_numpy(dtype=object)
+    return pd.DataFrame(columns)
+
+
 def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityResult:
     """Turn the observed side and all replicate chunks into a NeutralityResult."""
     null = np.concatenate([out.values for out in outputs], axis=0)
@@ -341,7 +420,8 @@ def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityRes
     return NeutralityResult(
         dataset=summarize_dataset(plan.dataset), model=model,
         statistics=calibrate_statistics(plan, null), parameters=parameters,
-        replicates=plan.settings.replicates, seed=plan.settings.seed, notes=model.flags)
+        replicates=plan.settings.replicates, seed=plan.settings.seed, notes=model.flags,
+        diagnostics=observed_diagnostics(plan))
 
 
 def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int = 200,

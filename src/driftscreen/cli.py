@@ -16,6 +16,8 @@ from driftscreen import __version__
 from driftscreen.errors import InputError
 
 EXIT_INPUT = 2
+#: What `screen --figures` holds when given without a folder (then OUT/figures).
+FIGURES_IN_OUT = ""
 
 
 def positive_int(text: str) -> int:
@@ -182,6 +184,9 @@ def add_test(sub: argparse._SubParsersAction) -> None:
                    help="which dataset to test when the table holds several")
     add_calibration_options(p)
     p.add_argument("--output", metavar="FILE", help="also write the report to FILE")
+    p.add_argument("--figures", metavar="DIR",
+                   help="also draw the null distributions, Taylor's law and the volatility "
+                        "of groups of taxa as PNG files in DIR (needs driftscreen[plot])")
     add_detectable_option(p)
     p.set_defaults(handler=run_test)
 
@@ -192,7 +197,8 @@ def run_test(args: argparse.Namespace) -> int:
     dataset = choose_dataset(read_input(args), args.dataset, args.counts)
     report = test_command(dataset, replicates=args.replicates, groupings=args.groupings,
                           seed=args.seed, jobs=args.jobs, output=args.output,
-                          detectable=args.detectable, messages=sys.stderr)
+                          detectable=args.detectable, messages=sys.stderr,
+                          figures=args.figures)
     sys.stdout.write(report)
     return 0
 
@@ -219,8 +225,19 @@ def add_screen(sub: argparse._SubParsersAction) -> None:
                    help="address of a running Dask scheduler (with --backend dask; without "
                         "it a local cluster of --jobs workers is started)")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    p.add_argument("--figures", metavar="DIR", nargs="?", const=FIGURES_IN_OUT,
+                   help="also draw every dataset's figures (null distributions, Taylor's "
+                        "law, volatility of groups of taxa) as PNG files in DIR; without "
+                        "DIR in OUT/figures (needs driftscreen[plot])")
     add_detectable_option(p)
     p.set_defaults(handler=run_screen)
+
+
+def screen_figures_folder(args: argparse.Namespace) -> Path | None:
+    """The folder given to `screen --figures`: DIR, OUT/figures without DIR, or None."""
+    if args.figures is None:
+        return None
+    return Path(args.out) / "figures" if args.figures == FIGURES_IN_OUT else Path(args.figures)
 
 
 def run_screen(args: argparse.Namespace) -> int:
@@ -231,7 +248,8 @@ def run_screen(args: argparse.Namespace) -> int:
             args.counts, args.metadata, out=Path(args.out), intake=intake_options(args),
             replicates=args.replicates, groupings=args.groupings, seed=args.seed,
             jobs=args.jobs, backend=args.backend, scheduler=args.scheduler,
-            messages=None if args.quiet else sys.stderr, detectable=args.detectable)
+            messages=None if args.quiet else sys.stderr, detectable=args.detectable,
+            figures=screen_figures_folder(args))
     except KeyboardInterrupt:
         print(f"driftscreen: interrupted; finished datasets are kept in {args.out}: run the "
               "same command again to go on", file=sys.stderr)

@@ -124,17 +124,22 @@ def choose_dataset(datasets: Sequence[Dataset], name: str | None, source: str) -
 
 def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int, jobs: int,
                  output: str | None = None, detectable: bool = False,
-                 messages: TextIO | None = None) -> str:
+                 messages: TextIO | None = None, figures: str | None = None) -> str:
     """`driftscreen test`: the report text (also written to ``output`` if given).
 
     With ``detectable``, a dataset whose combined test does not reject gets a note on what
-    its design could have detected (:func:`driftscreen.power.detectable_line`).
+    its design could have detected (:func:`driftscreen.power.detectable_line`). With
+    ``figures``, the figures of :func:`driftscreen.report.figures.write_figures` go into
+    that folder (matplotlib is checked for before any work).
     """
     from driftscreen.calibrate import COMBINED, CalibrationSettings, neutrality_test
     from driftscreen.power import detectable_line, with_detectable_line
     from driftscreen.reanalysis import depth_sensitivity_line
+    from driftscreen.report.figures import require_matplotlib, write_figures
     from driftscreen.report.text import verdict_word
 
+    if figures is not None:
+        require_matplotlib()
     result = neutrality_test(dataset, replicates=replicates, groupings=groupings, seed=seed,
                              jobs=jobs)
     if detectable and verdict_word(result.statistics[COMBINED].pvalue) == "not rejected":
@@ -153,6 +158,11 @@ def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int
     report = result.summary()
     if output:
         atomic_write_text(output, report)
+    if figures is not None:
+        written = write_figures(result, figures)
+        if messages is not None:
+            print(f"driftscreen: {len(written)} figures written to {figures}", file=messages,
+                  flush=True)
     return report
 
 
@@ -174,7 +184,8 @@ def intake_defaults() -> dict[str, Any]:
 def screen_command(counts: str, metadata: str | None = None, *, out: Path,
                    intake: Mapping[str, Any], replicates: int, groupings: int, seed: int,
                    jobs: int = 1, backend: str = "loky", scheduler: str | None = None,
-                   messages: TextIO | None = None, detectable: bool = False) -> list[Path]:
+                   messages: TextIO | None = None, detectable: bool = False,
+                   figures: Path | None = None) -> list[Path]:
     """`driftscreen screen`: test every dataset of a table, resumably; write the outputs.
 
     Parameters
@@ -195,11 +206,15 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
     detectable:
         Add to every dataset that the screen does not reject a note on what its design
         could have detected (see :func:`add_detectable_lines`); part of the fingerprint.
+    figures:
+        Folder for the figures of every analysed dataset
+        (:func:`driftscreen.report.figures.write_figures`); ``None`` draws none.
 
     Returns
     -------
     list of Path
-        ``results.tsv``, ``parameters.tsv``, ``results.json`` and ``report.txt`` in ``out``.
+        ``results.tsv``, ``parameters.tsv``, ``results.json`` and ``report.txt`` in ``out``,
+        then the figures.
     """
     from driftscreen.calibrate import CalibrationSettings
     from driftscreen.intake import read_datasets
@@ -207,10 +222,13 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
     from driftscreen.report.text import screen_report
     from driftscreen.screen import check_backend, execution_backend, screen, screen_statistics
     from driftscreen.power import detectable_settings
+    from driftscreen.report.figures import require_matplotlib
     from driftscreen.store import ResultStore, settings_fingerprint
 
     started = time.monotonic()
     check_backend(backend, scheduler)
+    if figures is not None:
+        require_matplotlib()
     settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
     intake = {**intake_defaults(), **intake}
     datasets = read_datasets(counts, metadata, **intake, min_samples=1, min_taxa=1)
@@ -236,7 +254,16 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
         REPORT_FILE: screen_report(run, fingerprint, run_seconds=time.monotonic() - started,
                                    date=date),
     }
-    return [atomic_write_text(Path(out) / name, text) for name, text in texts.items()]
+    paths = [atomic_write_text(Path(out) / name, text) for name, text in texts.items()]
+    return paths + ([] if figures is None else screen_figures(run, figures))
+
+
+def screen_figures(run: ScreenResult, folder: Path) -> list[Path]:
+    """The figures of every analysed dataset of a screen, drawn from its stored result."""
+    from driftscreen.report.figures import write_figures
+
+    return [path for outcome in run.outcomes if outcome.result is not None
+            for path in write_figures(outcome.result, folder)]
 
 
 def add_detectable_lines(run: ScreenResult, datasets: Sequence[Dataset], jobs: int,

@@ -2,8 +2,9 @@
 
 A :class:`NeutralityResult` holds, per statistic, a :class:`StatisticResult` with
 ``statistic``, ``pvalue`` and ``null_distribution`` (the bootstrap replicates), effect
-sizes, and the fitted null with bootstrap intervals. ``summary()`` renders the fixed-width
-plain-text report of :mod:`driftscreen.report.text`.
+sizes, and the fitted null with bootstrap intervals; ``diagnostics`` holds, per statistic,
+a table of what drives it on the observed data (per taxon, pool of rare taxa or grouping).
+``summary()`` renders the fixed-width plain-text report of :mod:`driftscreen.report.text`.
 """
 
 from __future__ import annotations
@@ -11,6 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 
 from driftscreen.neutral.model import NeutralModel
 
@@ -109,7 +111,12 @@ class DatasetSummary:
 
 @dataclass(frozen=True)
 class NeutralityResult:
-    """Outcome of :func:`driftscreen.neutrality_test` for one dataset."""
+    """Outcome of :func:`driftscreen.neutrality_test` for one dataset.
+
+    ``diagnostics`` maps a statistic's name to the table its ``diagnose`` gives on the
+    observed data, made storable by :func:`driftscreen.calibrate.storable_table` (taxon
+    ids instead of column indices, numbers in 6 significant digits); empty if none.
+    """
 
     dataset: DatasetSummary
     model: NeutralModel
@@ -118,6 +125,7 @@ class NeutralityResult:
     replicates: int
     seed: int
     notes: tuple[str, ...] = field(default=())
+    diagnostics: dict[str, pd.DataFrame] = field(default_factory=dict)
 
     def __getitem__(self, name: str) -> StatisticResult:
         return self.statistics[name]

@@ -4,7 +4,8 @@ Floats are written as JSON numbers, which Python prints with ``repr`` (the short
 string that reads back to the same double), so a round trip is exact (except the
 metacommunity composition ``p``, which :class:`NeutralModel` renormalises: last-bit changes
 at most). JSON has no NaN or infinity: NaN becomes ``null`` and the infinities the strings
-``"inf"`` and ``"-inf"``.
+``"inf"`` and ``"-inf"``. Diagnostic tables are stored column by column with each column's
+type (``float``, ``int``, ``bool`` or ``text``), so they read back with the same dtypes.
 """
 
 from __future__ import annotations
@@ -14,6 +15,7 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
@@ -106,6 +108,53 @@ def statistic_from_dict(data: Mapping[str, Any]) -> StatisticResult:
                            data["note"])
 
 
+def column_type(column: pd.Series) -> str:
+    """``"bool"``, ``"int"``, ``"float"`` or ``"text"``: how a table column is stored."""
+    if pd.api.types.is_bool_dtype(column):
+        return "bool"
+    if pd.api.types.is_integer_dtype(column):
+        return "int"
+    if pd.api.types.is_float_dtype(column):
+        return "float"
+    return "text"
+
+
+def column_to_json(column: pd.Series, kind: str) -> list[Any]:
+    if kind == "float":
+        return floats_to_json(column.to_numpy(dtype=np.float64))
+    if kind == "int":
+        return [int(v) for v in column]
+    if kind == "bool":
+        return [bool(v) for v in column]
+    return [str(v) for v in column]
+
+
+def column_from_json(values: list[Any], kind: str) -> np.ndarray:
+    if kind == "float":
+        return floats_from_json(values)
+    if kind == "int":
+        return np.array(values, dtype=np.int64)
+    if kind == "bool":
+        return np.array(values, dtype=bool)
+    return np.array(values, dtype=object)
+
+
+def table_to_dict(table: pd.DataFrame) -> dict[str, Any]:
+    """A table as ``{"columns": [{"name", "type", "values"}, ...]}``, in column order."""
+    columns = []
+    for name in table.columns:
+        kind = column_type(table[name])
+        columns.append({"name": str(name), "type": kind,
+                        "values": column_to_json(table[name], kind)})
+    return {"columns": columns}
+
+
+def table_from_dict(data: Mapping[str, Any]) -> pd.DataFrame:
+    """Inverse of :func:`table_to_dict` (same columns, order and dtypes)."""
+    return pd.DataFrame({column["name"]: column_from_json(column["values"], column["type"])
+                         for column in data["columns"]})
+
+
 def result_to_dict(result: NeutralityResult) -> dict[str, Any]:
     """Everything needed to rebuild ``result`` exactly (null distributions included)."""
     return {
@@ -114,14 +163,22 @@ def result_to_dict(result: NeutralityResult) -> dict[str, Any]:
         "statistics": [statistic_to_dict(s) for s in result.statistics.values()],
         "parameters": [parameter_to_dict(p) for p in result.parameters.values()],
         "replicates": result.replicates, "seed": result.seed, "notes": list(result.notes),
+        "diagnostics": {name: table_to_dict(table)
+                        for name, table in result.diagnostics.items()},
     }
 
 
 def result_from_dict(data: Mapping[str, Any]) -> NeutralityResult:
-    """Inverse of :func:`result_to_dict` (statistics and parameters keep their order)."""
+    """Inverse of :func:`result_to_dict` (statistics and parameters keep their order).
+
+    Records written before results carried diagnostics read back with none.
+    """
     statistics = [statistic_from_dict(s) for s in data["statistics"]]
     parameters = [parameter_from_dict(p) for p in data["parameters"]]
+    diagnostics = {name: table_from_dict(table)
+                   for name, table in data.get("diagnostics", {}).items()}
     return NeutralityResult(
         dataset=summary_from_dict(data["dataset"]), model=model_from_dict(data["model"]),
         statistics={s.name: s for s in statistics}, parameters={p.name: p for p in parameters},
-        replicates=int(data["replicates"]), seed=int(data["seed"]), notes=tuple(data["notes"]))
+        replicates=int(data["replicates"]), seed=int(data["seed"]), notes=tuple(data["notes"]),
+        diagnostics=diagnostics)

@@ -3,6 +3,8 @@
 Everything here is deterministic: the same results give the same bytes, whatever the
 number of jobs and whether a run was resumed. TSV numbers are printed with ``%.6g``
 (empty cell when missing); JSON numbers are exact (``repr``), with ``null`` when missing.
+Each dataset's diagnostic tables appear in ``results.json`` column by column, with each
+column's type (:func:`driftscreen.serialize.table_to_dict`).
 """
 
 from __future__ import annotations
@@ -13,7 +15,8 @@ from collections.abc import Mapping, Sequence
 from typing import Any
 
 from driftscreen.screen import DatasetOutcome, ScreenResult
-from driftscreen.serialize import float_to_json, floats_to_json, summary_to_dict
+from driftscreen.serialize import (float_to_json, floats_to_json, summary_to_dict,
+                                   table_to_dict)
 
 RESULTS_COLUMNS = ("dataset", "statistic", "alternative", "observed", "null_mean", "null_sd",
                    "null_median", "effect_size", "ratio_to_median", "p_value", "q_value",
@@ -112,6 +115,8 @@ def dataset_record(outcome: DatasetOutcome, index: int, run: ScreenResult) -> di
     record["replicates"] = result.replicates
     record["statistics"] = [statistic_record(outcome, index, run, name)
                             for name in result.statistics]
+    record["diagnostics"] = {name: table_to_dict(table)
+                             for name, table in result.diagnostics.items()}
     return record
 
 

@@ -11,6 +11,9 @@ import textwrap
 from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
+import numpy as np
+import pandas as pd
+
 from driftscreen import __version__
 from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
                                  StatisticResult)
@@ -132,6 +135,185 @@ def design_lines(result: NeutralityResult) -> list[str]:
     ])
 
 
+# ----------------------------------------------------------------------------- diagnostics
+#: Rows shown in the per-taxon diagnostic tables.
+TOP_TAXA = 5
+#: Classes of group abundance in the regrouping diagnostics.
+ABUNDANCE_CLASSES = 4
+#: Columns each diagnostic block reads (a table without them gets no block).
+BLOCK_COLUMNS = {
+    "stationary_divergence": ("taxon", "p", "observed_zero_fraction",
+                              "expected_zero_fraction", "contribution", "direction"),
+    "regrouping_invariance": ("mean_abundance", "volatility", "weight"),
+    "fluctuation_scaling": ("used", "slope", "intercept"),
+    "dispersion_heterogeneity": ("taxon", "p", "theta_taxon", "theta_common", "at_grid_edge",
+                                 "lr_contribution"),
+}
+
+
+def percent(share: float) -> str:
+    """A share in [0, 1] as a whole percentage; '<1%' and '>99%' near but not at 0 and 1."""
+    if not math.isfinite(share):
+        return "-"
+    if 0 < share < 0.005:
+        return "<1%"
+    if 0.995 <= share < 1:
+        return ">99%"
+    return f"{100 * share:.0f}%"
+
+
+def shorten_taxon(name: str, width: int) -> str:
+    """``name`` cut in the middle to ``width`` characters, marked '~'.
+
+    Start and end both stay: lineages and ids differ mostly at their ends
+    ('...;Lachnospiraceae;genus_12'), names at their start.
+    """
+    if len(name) <= width:
+        return name
+    head = (width - 1) // 3
+    return name[:head] + "~" + name[len(name) - (width - 1 - head):]
+
+
+def taxon_cells(labels: Sequence[str], members: Sequence[int], width: int) -> list[str]:
+    """Taxon labels cut to ``width``, keeping a pool's ' +N rare' suffix whole."""
+    cells = []
+    for label, count in zip(labels, members):
+        suffix = f" +{count - 1} rare" if count > 1 and label.endswith(" rare") else ""
+        head = label[:len(label) - len(suffix)]
+        cells.append(shorten_taxon(head, max(width - len(suffix), 4)) + suffix)
+    return cells
+
+
+def taxon_table(headers: Sequence[str], labels: Sequence[str], members: Sequence[int],
+                rows: Sequence[list[str]], align: str) -> list[str]:
+    """:func:`table` whose first column, taxon labels, is cut so that lines fit in WIDTH."""
+    others = sum(max([len(h)] + [len(r[c]) for r in rows]) for c, h in enumerate(headers[1:]))
+    width = max(len(headers[0]), WIDTH - others - 2 * (len(headers) - 1))
+    cells = taxon_cells(labels, members, width)
+    return table(headers, [[cell] + list(row) for cell, row in zip(cells, rows)], align)
+
+
+def stationary_block(diagnosis: pd.DataFrame) -> list[str]:
+    """The taxa (or pools of rare taxa) contributing most to stationary_divergence."""
+    top = diagnosis.head(TOP_TAXA)
+    members = top["members"].tolist() if "members" in top else [1] * len(top)
+    rows = [[number(row.p), percent(row.observed_zero_fraction),
+             percent(row.expected_zero_fraction), number(row.contribution, 3), row.direction]
+            for row in top.itertuples()]
+    lines = wrap(f"Stationary divergence: the {len(top)} taxa contributing most")
+    lines += taxon_table(["taxon", "p", "zero obs", "zero exp", "part", "variability"],
+                         top["taxon"].tolist(), members, rows, "lrrrrl")
+    return lines + wrap(
+        "p: share of the metacommunity; zero obs/exp: samples without reads, observed and "
+        "expected under neutrality; part: the taxon's part of the statistic (bias-corrected "
+        "Kullback-Leibler divergence in nats; the parts sum to the statistic); variability: "
+        "variance of its relative abundance against the neutral one; +N rare: pooled with N "
+        "rarer taxa.")
+
+
+def fluctuation_block(diagnosis: pd.DataFrame, statistic: StatisticResult | None) -> list[str]:
+    """The fitted Taylor line next to the neutral expectation and the replicates' exponent."""
+    first = diagnosis.iloc[0]
+    used = int(diagnosis["used"].sum())
+    rows = [["observed taxa", number(first.slope), number(first.intercept)]]
+    if "neutral_slope" in diagnosis:
+        rows.append(["neutral expectation, same taxa", number(first.neutral_slope),
+                     number(first.neutral_intercept)])
+    if statistic is not None and statistic.null_distribution.size:
+        rows.append(["neutral replicates, mean +- sd",
+                     f"{number(statistic.null_mean)} +- {number(statistic.null_sd, 2)}", "-"])
+    lines = wrap(f"Fluctuation scaling: Taylor's law variance = exp(c) mean^b over {used} of "
+                 f"{len(diagnosis)} taxa")
+    lines += table(["line", "exponent b", "intercept c"], rows, "lrr")
+    return lines + wrap(
+        "Mean and variance of each taxon's relative abundance across samples, the variance "
+        "corrected for sequencing noise. The neutral expectation is p (1 - p) / (1 + theta) "
+        "per taxon; the replicates' exponent also carries sampling and estimation effects "
+        "and is what the p-value compares with. b near 1 is drift-like, b near 2 points to "
+        "multiplicative environmental noise.")
+
+
+def volatility_classes(diagnosis: pd.DataFrame, n_classes: int = ABUNDANCE_CLASSES
+                       ) -> list[tuple[float, float, float, int]]:
+    """Groupings with weight in ``n_classes`` equal-size classes of mean abundance.
+
+    Per class: lowest and highest abundance, volatility weighted as in the statistic,
+    number of groupings.
+    """
+    kept = diagnosis[diagnosis["weight"] > 0].sort_values("mean_abundance", kind="stable")
+    classes = []
+    for part in np.array_split(np.arange(len(kept)), min(n_classes, len(kept))):
+        rows = kept.iloc[part]
+        weights = rows["weight"].to_numpy()
+        classes.append((float(rows["mean_abundance"].min()), float(rows["mean_abundance"].max()),
+                        float(np.average(rows["volatility"], weights=weights)), len(rows)))
+    return classes
+
+
+def regrouping_block(diagnosis: pd.DataFrame) -> list[str]:
+    """Volatility of random groupings of taxa by class of group abundance."""
+    classes = volatility_classes(diagnosis)
+    rows = [[f"{number(low, 2)} .. {number(high, 2)}", str(count), number(mean, 3)]
+            for low, high, mean, count in classes]
+    lines = wrap("Regrouping invariance: volatility of random groups of taxa (1 = neutral)")
+    lines += table(["group abundance", "groups", "volatility"], rows, "lrr")
+    return lines + wrap(
+        "Volatility: squared changes of a group's angular-transformed abundance between "
+        "samples over their neutral expectation, averaged with the statistic's weights; "
+        f"groups in {len(classes)} classes of equal size by fitted abundance (fraction of "
+        "reads). Under neutrality every class is near 1; a trend or spread across classes "
+        "points to niche structure.")
+
+
+def dispersion_block(diagnosis: pd.DataFrame) -> list[str]:
+    """The taxa with the largest share of the dispersion-heterogeneity likelihood ratio."""
+    top = diagnosis.head(TOP_TAXA)
+    total = float(diagnosis["lr_contribution"].sum())
+    rows = [[number(row.p), number(row.theta_taxon) + ("*" if row.at_grid_edge else " "),
+             number(row.theta_common), number(row.lr_contribution, 3),
+             percent(row.lr_contribution / total) if total > 0 else "-"]
+            for row in top.itertuples()]
+    lines = wrap(f"Dispersion heterogeneity: the {len(top)} taxa with the largest part of "
+                 "the LR statistic")
+    lines += taxon_table(["taxon", "p", "own theta", "common theta", "LR part", "share"],
+                         top["taxon"].tolist(), [1] * len(top), rows, "lrrrrr")
+    return lines + wrap(
+        "LR part: the taxon's part of the likelihood-ratio statistic (taxon-specific "
+        "against common beta-binomial theta; the parts sum to the statistic). Own theta "
+        "above the common one: the taxon varies less than the common theta implies; below: "
+        "more. * at the end of the fitted range (a factor 8 either side of a first "
+        "estimate).")
+
+
+def diagnostic_tables(result: NeutralityResult) -> dict[str, pd.DataFrame]:
+    """The result's non-empty diagnostic tables that hold what their block reads."""
+    return {name: table for name, table in result.diagnostics.items()
+            if len(table) and set(BLOCK_COLUMNS.get(name, ())) <= set(table.columns)}
+
+
+def diagnostics_lines(result: NeutralityResult) -> list[str]:
+    """The 'Diagnostics' block: one paragraph per statistic that was run (none if none)."""
+    tables = diagnostic_tables(result)
+    blocks = []
+    if "stationary_divergence" in tables:
+        blocks.append(stationary_block(tables["stationary_divergence"]))
+    if "regrouping_invariance" in tables and (tables["regrouping_invariance"]["weight"] > 0).any():
+        blocks.append(regrouping_block(tables["regrouping_invariance"]))
+    if "fluctuation_scaling" in tables:
+        blocks.append(fluctuation_block(tables["fluctuation_scaling"],
+                                        result.statistics.get("fluctuation_scaling")))
+    if "dispersion_heterogeneity" in tables:
+        blocks.append(dispersion_block(tables["dispersion_heterogeneity"]))
+    if not blocks:
+        return []
+    lines = heading("Diagnostics") + wrap(
+        "What drives each statistic in the observed data (descriptive; the tests are the "
+        "p-values above).")
+    for block in blocks:
+        lines += [""] + block
+    return lines
+
+
 def dataset_section(result: NeutralityResult) -> list[str]:
     """The per-dataset block shared by the single-dataset and the screen reports."""
     lines = design_lines(result) + [""]
@@ -142,6 +324,9 @@ def dataset_section(result: NeutralityResult) -> list[str]:
         ["statistic", "observed", "null mean", "null sd", "effect", "obs/med", "p-value"],
         statistic_rows(result.statistics, result.replicates)) + [""]
     lines += wrap(verdict(result))
+    diagnostics = diagnostics_lines(result)
+    if diagnostics:
+        lines += [""] + diagnostics
     notes = list(result.dataset.notes) + list(result.notes) + [
         f"{s.name}: {s.note}" for s in result.statistics.values() if s.note]
     if notes:

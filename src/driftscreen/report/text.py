@@ -201,14 +201,8 @@ def stationary_block(diagnosis: pd.DataFrame) -> list[str]:
              percent(row.expected_zero_fraction), number(row.contribution, 3), row.direction]
             for row in top.itertuples()]
     lines = wrap(f"Stationary divergence: the {len(top)} taxa contributing most")
-    lines += taxon_table(["taxon", "p", "zero obs", "zero exp", "part", "variability"],
-                         top["taxon"].tolist(), members, rows, "lrrrrl")
-    return lines + wrap(
-        "p: share of the metacommunity; zero obs/exp: samples without reads, observed and "
-        "expected under neutrality; part: the taxon's part of the statistic (bias-corrected "
-        "Kullback-Leibler divergence in nats; the parts sum to the statistic); variability: "
-        "variance of its relative abundance against the neutral one; +N rare: pooled with N "
-        "rarer taxa.")
+    return lines + taxon_table(["taxon", "p", "zero obs", "zero exp", "part", "variability"],
+                               top["taxon"].tolist(), members, rows, "lrrrrl")
 
 
 def fluctuation_block(diagnosis: pd.DataFrame, statistic: StatisticResult | None) -> list[str]:
@@ -224,13 +218,7 @@ def fluctuation_block(diagnosis: pd.DataFrame, statistic: StatisticResult | None
                      f"{number(statistic.null_mean)} +- {number(statistic.null_sd, 2)}", "-"])
     lines = wrap(f"Fluctuation scaling: Taylor's law variance = exp(c) mean^b over {used} of "
                  f"{len(diagnosis)} taxa")
-    lines += table(["line", "exponent b", "intercept c"], rows, "lrr")
-    return lines + wrap(
-        "Mean and variance of each taxon's relative abundance across samples, the variance "
-        "corrected for sequencing noise. The neutral expectation is p (1 - p) / (1 + theta) "
-        "per taxon; the replicates' exponent also carries sampling and estimation effects "
-        "and is what the p-value compares with. b near 1 is drift-like, b near 2 points to "
-        "multiplicative environmental noise.")
+    return lines + table(["line", "exponent b", "intercept c"], rows, "lrr")
 
 
 def volatility_classes(diagnosis: pd.DataFrame, n_classes: int = ABUNDANCE_CLASSES
@@ -256,13 +244,7 @@ def regrouping_block(diagnosis: pd.DataFrame) -> list[str]:
     rows = [[f"{number(low, 2)} .. {number(high, 2)}", str(count), number(mean, 3)]
             for low, high, mean, count in classes]
     lines = wrap("Regrouping invariance: volatility of random groups of taxa (1 = neutral)")
-    lines += table(["group abundance", "groups", "volatility"], rows, "lrr")
-    return lines + wrap(
-        "Volatility: squared changes of a group's angular-transformed abundance between "
-        "samples over their neutral expectation, averaged with the statistic's weights; "
-        f"groups in {len(classes)} classes of equal size by fitted abundance (fraction of "
-        "reads). Under neutrality every class is near 1; a trend or spread across classes "
-        "points to niche structure.")
+    return lines + table(["group abundance", "groups", "volatility"], rows, "lrr")
 
 
 def dispersion_block(diagnosis: pd.DataFrame) -> list[str]:
@@ -275,14 +257,8 @@ def dispersion_block(diagnosis: pd.DataFrame) -> list[str]:
             for row in top.itertuples()]
     lines = wrap(f"Dispersion heterogeneity: the {len(top)} taxa with the largest part of "
                  "the LR statistic")
-    lines += taxon_table(["taxon", "p", "own theta", "common theta", "LR part", "share"],
-                         top["taxon"].tolist(), [1] * len(top), rows, "lrrrrr")
-    return lines + wrap(
-        "LR part: the taxon's part of the likelihood-ratio statistic (taxon-specific "
-        "against common beta-binomial theta; the parts sum to the statistic). Own theta "
-        "above the common one: the taxon varies less than the common theta implies; below: "
-        "more. * at the end of the fitted range (a factor 8 either side of a first "
-        "estimate).")
+    return lines + taxon_table(["taxon", "p", "own theta", "common theta", "LR part", "share"],
+                               top["taxon"].tolist(), [1] * len(top), rows, "lrrrrr")
 
 
 def diagnostic_tables(result: NeutralityResult) -> dict[str, pd.DataFrame]:
@@ -291,30 +267,69 @@ def diagnostic_tables(result: NeutralityResult) -> dict[str, pd.DataFrame]:
             if len(table) and set(BLOCK_COLUMNS.get(name, ())) <= set(table.columns)}
 
 
-def diagnostics_lines(result: NeutralityResult) -> list[str]:
-    """The 'Diagnostics' block: one paragraph per statistic that was run (none if none)."""
-    tables = diagnostic_tables(result)
-    blocks = []
-    if "stationary_divergence" in tables:
-        blocks.append(stationary_block(tables["stationary_divergence"]))
-    if "regrouping_invariance" in tables and (tables["regrouping_invariance"]["weight"] > 0).any():
-        blocks.append(regrouping_block(tables["regrouping_invariance"]))
-    if "fluctuation_scaling" in tables:
-        blocks.append(fluctuation_block(tables["fluctuation_scaling"],
-                                        result.statistics.get("fluctuation_scaling")))
-    if "dispersion_heterogeneity" in tables:
-        blocks.append(dispersion_block(tables["dispersion_heterogeneity"]))
-    if not blocks:
-        return []
-    lines = heading("Diagnostics") + wrap(
-        "What drives each statistic in the observed data (descriptive; the tests are the "
-        "p-values above).")
-    for block in blocks:
-        lines += [""] + block
+DIAGNOSTIC_LEGENDS = {
+    "stationary_divergence":
+        "Stationary divergence. p: share of the metacommunity; zero obs/exp: samples "
+        "without reads, observed and expected under neutrality; part: the taxon's part of "
+        "the statistic (bias-corrected Kullback-Leibler divergence in nats; the parts sum to "
+        "the statistic); variability: variance of its relative abundance against the "
+        "neutral one; +N rare: pooled with N rarer taxa.",
+    "regrouping_invariance":
+        "Regrouping invariance. Volatility: squared changes of a group's angular-"
+        "transformed abundance between samples over their neutral expectation, averaged "
+        f"with the statistic's weights; groups in up to {ABUNDANCE_CLASSES} classes of equal "
+        "size by fitted abundance (fraction of reads). Under neutrality every class is near "
+        "1; a trend or spread across classes points to niche structure.",
+    "fluctuation_scaling":
+        "Fluctuation scaling. Mean and variance of each taxon's relative abundance across "
+        "samples, the variance corrected for sequencing noise. The neutral expectation is "
+        "p (1 - p) / (1 + theta) per taxon; the replicates' exponent also carries sampling "
+        "and estimation effects and is what the p-value compares with. b near 1 is "
+        "drift-like, b near 2 points to multiplicative environmental noise.",
+    "dispersion_heterogeneity":
+        "Dispersion heterogeneity. LR part: the taxon's part of the likelihood-ratio "
+        "statistic (taxon-specific against common beta-binomial theta; the parts sum to the "
+        "statistic). Own theta above the common one: the taxon varies less than the common "
+        "theta implies; below: more. * at the end of the fitted range.",
+}
+
+
+def diagnostics_legend(names: Sequence[str]) -> list[str]:
+    """How to read the diagnostics blocks of the given statistics, one paragraph each."""
+    lines = wrap("What drives each statistic in the observed data (descriptive; the tests "
+                 "are the p-values).")
+    for name in names:
+        if name in DIAGNOSTIC_LEGENDS:
+            lines += [""] + wrap(DIAGNOSTIC_LEGENDS[name])
     return lines
 
 
-def dataset_section(result: NeutralityResult) -> list[str]:
+def diagnostics_lines(result: NeutralityResult, legend: bool = True) -> list[str]:
+    """The 'Diagnostics' block: one table per statistic that was run (none if none),
+    followed by how to read them unless ``legend`` is False (the screen report gives the
+    legend once for all datasets)."""
+    tables = diagnostic_tables(result)
+    blocks = {}
+    if "stationary_divergence" in tables:
+        blocks["stationary_divergence"] = stationary_block(tables["stationary_divergence"])
+    if "regrouping_invariance" in tables and (tables["regrouping_invariance"]["weight"] > 0).any():
+        blocks["regrouping_invariance"] = regrouping_block(tables["regrouping_invariance"])
+    if "fluctuation_scaling" in tables:
+        blocks["fluctuation_scaling"] = fluctuation_block(
+            tables["fluctuation_scaling"], result.statistics.get("fluctuation_scaling"))
+    if "dispersion_heterogeneity" in tables:
+        blocks["dispersion_heterogeneity"] = dispersion_block(tables["dispersion_heterogeneity"])
+    if not blocks:
+        return []
+    lines = heading("Diagnostics")
+    for block in blocks.values():
+        lines += block + [""]
+    if legend:
+        lines += diagnostics_legend(list(blocks))
+    return lines[:-1] if lines[-1] == "" else lines
+
+
+def dataset_section(result: NeutralityResult, legend: bool = True) -> list[str]:
     """The per-dataset block shared by the single-dataset and the screen reports."""
     lines = design_lines(result) + [""]
     lines += heading("Fitted neutral null") + table(
@@ -324,7 +339,7 @@ def dataset_section(result: NeutralityResult) -> list[str]:
         ["statistic", "observed", "null mean", "null sd", "effect", "obs/med", "p-value"],
         statistic_rows(result.statistics, result.replicates)) + [""]
     lines += wrap(verdict(result))
-    diagnostics = diagnostics_lines(result)
+    diagnostics = diagnostics_lines(result, legend)
     if diagnostics:
         lines += [""] + diagnostics
     notes = list(result.dataset.notes) + list(result.notes) + [
@@ -517,7 +532,7 @@ def outcome_section(run: ScreenResult, index: int) -> list[str]:
             lines += [""] + heading("Warnings") + bullet_list(summary.warnings)
         return lines
     q = combined_qvalue(run, index)
-    lines += dataset_section(outcome.result) + [""]
+    lines += dataset_section(outcome.result, legend=False) + [""]
     lines += wrap(f"Across the screen: combined q-value {qvalue_text(q)} (Benjamini-Hochberg "
                   f"over {n_tested(run)} tested datasets); verdict: neutrality {verdict_word(q)}"
                   f" at FDR {ALPHA:g}.")
@@ -587,5 +602,9 @@ def screen_report(run: ScreenResult, provenance: Mapping[str, Any], *, run_secon
     lines = screen_header(run, provenance, run_seconds, date) + [""] + summary_lines(run)
     for index in range(len(run.outcomes)):
         lines += [""] + outcome_section(run, index)
+    used = statistics_used(run)
+    if any(outcome.result is not None and outcome.result.diagnostics
+           for outcome in run.outcomes):
+        lines += [""] + heading("Reading the diagnostics") + diagnostics_legend(used)
     lines += [""] + methods_paragraph(run, provenance["driftscreen_version"])
     return "\n".join(lines) + "\n"

@@ -8,14 +8,14 @@ import tempfile
 from pathlib import Path
 
 
-def atomic_write_text(path: str | os.PathLike, text: str) -> Path:
-    """Write ``text`` to ``path`` via a temporary file in the same folder and a rename."""
+def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> Path:
+    """Write ``data`` to ``path`` via a temporary file in the same folder and a rename."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
     try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
-            stream.write(text)
+        with os.fdopen(handle, "wb") as stream:
+            stream.write(data)
             stream.flush()
             os.fsync(stream.fileno())
         os.replace(temporary, path)
@@ -23,6 +23,11 @@ def atomic_write_text(path: str | os.PathLike, text: str) -> Path:
         Path(temporary).unlink(missing_ok=True)
         raise
     return path
+
+
+def atomic_write_text(path: str | os.PathLike, text: str) -> Path:
+    """Write ``text`` (UTF-8, ``\\n`` line ends) to ``path`` atomically."""
+    return atomic_write_bytes(path, text.encode("utf-8"))
 
 
 def sha256_of(path: str | os.PathLike) -> str:

@@ -25,7 +25,6 @@ import io
 import math
 import os
 import re
-import tempfile
 from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -34,6 +33,7 @@ import numpy as np
 import pandas as pd
 
 from driftscreen.errors import InputError
+from driftscreen.files import atomic_write_bytes
 from driftscreen.report.text import number, pvalue_text, volatility_classes
 from driftscreen.results import NeutralityResult, StatisticResult
 
@@ -284,16 +284,5 @@ def save_png(figure: Figure, path: Path) -> Path:
     """Render ``figure`` as PNG and write it to ``path`` via a temporary file and a rename."""
     buffer = io.BytesIO()
     figure.savefig(buffer, format="png", dpi=DPI)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.",
-                                         suffix=".part")
-    try:
-        with os.fdopen(handle, "wb") as stream:
-            stream.write(buffer.getvalue())
-            stream.flush()
-            os.fsync(stream.fileno())
-        os.replace(temporary, path)
-    except BaseException:
-        Path(temporary).unlink(missing_ok=True)
-        raise
+    atomic_write_bytes(path, buffer.getvalue())
     return path

@@ -88,7 +88,9 @@ def test_taylor_line_is_the_observed_exponent(series_result):
     used = table[table["used"]]
     # fitted_variance is the line exp(c) mean^b (Taylor 1961, Nature 189:732).
     line = np.exp(used["intercept"] + used["slope"] * np.log(used["mean"]))
-    np.testing.assert_allclose(used["fitted_variance"], line, rtol=2e-5)
+    # intercept, slope and mean are each stored to 6 significant digits (relative error
+    # 5e-6), so log(line) may be off by 5e-6 (|c| + |b log mean| + 1): about 1e-4 here
+    np.testing.assert_allclose(used["fitted_variance"], line, rtol=2e-4)
 
 
 def test_regrouping_table_holds_the_groupings_behind_the_observed_value(series, series_result):

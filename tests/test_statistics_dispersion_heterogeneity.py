@@ -5,16 +5,21 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from scipy import special, stats
+from scipy import optimize, special, stats
 
+from driftscreen.neutral.model import NullFit
 from driftscreen.statistics.dispersion_heterogeneity import (
     DispersionHeterogeneity,
-    pilot_theta,
-    refine_maximum,
+    autocorrelation_factor,
+    beta_curve_step,
     interpolant_at,
+    pilot_theta,
+    profile_grid,
+    profile_point,
+    refine_maximum,
+    shape_sums,
     stirling_log_gamma,
     summarise_counts,
-    theta_dependent_loglik,
 )
 from test_statistics_synthetic import (
     composition,
@@ -36,11 +41,9 @@ def _binomial_coefficients(counts, depths):
             - special.gammaln(depths[None, :, None] - counts + 1.0)).sum(axis=1)
 
 
-def test_loglik_matches_scipy_betabinom_logpmf():
-    # Source: scipy.stats.betabinom.logpmf summed over samples. Counts cover zeros, small
-    # values (exact histogram path), large values (Stirling path), reads of the rest below
-    # 32 (a dominant taxon) and depths below 32. Stirling's error is < 1/(360 x^3) per cell
-    # at x >= 32 (Abramowitz & Stegun 6.1.41): < 2e-5 over these 60 samples.
+def _awkward_counts():
+    """Zeros, small reads (exact path), large reads (asymptotic path), a dominant taxon
+    whose rest has fewer than 32 reads, and depths below 32."""
     rng = np.random.default_rng(8)
     depths = np.concatenate([[1, 5, 31, 32, 33], rng.integers(40, 200000, 55)]).astype(float)
     p = np.array([[0.9, 0.05, 0.03, 0.015, 0.005], [0.2, 0.2, 0.2, 0.2, 0.2]])
@@ -48,12 +51,135 @@ def test_loglik_matches_scipy_betabinom_logpmf():
     fractions = rng.dirichlet(theta[0] * p[0], size=(2, depths.size))
     counts = rng.multinomial(depths.astype(np.int64)[None, :], fractions).astype(np.int64)
     counts[0, 10, :] = [int(depths[10]) - 3, 1, 1, 1, 0]
-    shape_a, shape_b = theta[:, None] * p, theta[:, None] * (1 - p)
-    mine = theta_dependent_loglik(summarise_counts(counts, depths), shape_a, shape_b)
-    reference = stats.betabinom.logpmf(counts, depths[None, :, None], shape_a[:, None, :],
-                                       shape_b[:, None, :]).sum(axis=1)
-    np.testing.assert_allclose(mine + _binomial_coefficients(counts, depths), reference,
-                               rtol=0, atol=2e-5)
+    return counts, depths, p, theta
+
+
+def _betabinom_sum(counts, depths, p, theta):
+    """sum_t scipy.stats.betabinom.logpmf for every table and taxon, ``(R, K)``."""
+    a, b = theta[:, None] * p, theta[:, None] * (1 - p)
+    return stats.betabinom.logpmf(counts, depths[None, :, None], a[:, None, :],
+                                  b[:, None, :]).sum(axis=1)
+
+
+def test_shape_sums_match_scipy_special_functions():
+    # Source: scipy.special gammaln, digamma and polygamma(1, .) summed over samples. The
+    # asymptotic series leave per cell at most 1/(360 x^3), 1/(120 x^4), 1/(30 x^5) at
+    # x >= 32 (Abramowitz & Stegun 1964, 6.1.41, 6.3.18, 6.4.12): < 1e-5 over 60 samples.
+    counts, depths, p, theta = _awkward_counts()
+    summary = summarise_counts(counts, depths)
+    for which, reads, shape in ((0, counts, theta[:, None] * p),
+                                (1, depths[None, :, None] - counts, theta[:, None] * (1 - p))):
+        mine = shape_sums(summary, which, shape)
+        s = shape[:, None, :]
+        np.testing.assert_allclose(
+            mine.log_gamma, (special.gammaln(reads + s) - special.gammaln(s)).sum(axis=1),
+            rtol=1e-10, atol=1e-5)
+        np.testing.assert_allclose(
+            mine.digamma, (special.digamma(reads + s) - special.digamma(s)).sum(axis=1),
+            rtol=1e-10, atol=1e-5)
+        np.testing.assert_allclose(
+            mine.curvature,
+            (special.polygamma(1, s) - special.polygamma(1, reads + s)).sum(axis=1),
+            rtol=1e-10, atol=1e-5)
+
+
+def test_loglik_matches_scipy_betabinom_logpmf():
+    # Source: scipy.stats.betabinom.logpmf summed over samples (awkward counts as above).
+    counts, depths, p, theta = _awkward_counts()
+    point = profile_point(summarise_counts(counts, depths), p, theta)
+    np.testing.assert_allclose(point.loglik + _binomial_coefficients(counts, depths),
+                               _betabinom_sum(counts, depths, p, theta), rtol=0, atol=2e-5)
+
+
+def test_score_information_and_drift_are_the_derivatives_in_p_and_log_theta():
+    # Source: d lgamma(x)/dx = psi(x), d psi(x)/dx = psi'(x) (Abramowitz & Stegun 1964, 6.3.1,
+    # 6.4.1), written with scipy.special.digamma / polygamma: with a = theta p, b = theta (1-p),
+    # dl/dp = theta sum_t [psi(N + a) - psi(a) - psi(n - N + b) + psi(b)], and so on.
+    counts, depths, p, theta = _awkward_counts()
+    point = profile_point(summarise_counts(counts, depths), p, theta)
+    a, b = (theta[:, None] * q for q in (p, 1 - p))
+    reads, rest = counts, depths[None, :, None] - counts
+
+    def summed(function, m, s):
+        return (function(m + s[:, None, :]) - function(s[:, None, :])).sum(axis=1)
+
+    def trigamma(x):
+        return special.polygamma(1, x)
+
+    score = theta[:, None] * (summed(special.digamma, reads, a)
+                              - summed(special.digamma, rest, b))
+    curvature_a, curvature_b = -summed(trigamma, reads, a), -summed(trigamma, rest, b)
+    np.testing.assert_allclose(point.score, score, rtol=1e-7, atol=1e-5)
+    np.testing.assert_allclose(point.information,
+                               theta[:, None] ** 2 * (curvature_a + curvature_b),
+                               rtol=1e-7, atol=1e-5)
+    np.testing.assert_allclose(
+        point.drift, score + theta[:, None] ** 2 * ((1 - p) * curvature_b - p * curvature_a),
+        rtol=1e-7, atol=1e-5)
+
+
+def test_derivatives_match_finite_differences_of_the_betabinom_loglik():
+    # Central differences of the summed scipy.stats.betabinom.logpmf on shallow samples (the
+    # log-likelihood stays small, so rounding ~eps |l| / h is negligible; truncation ~h^2;
+    # common practice): relative tolerance 1e-5 for first and 1e-3 for second differences.
+    rng = np.random.default_rng(3)
+    depths = rng.integers(2, 60, 40).astype(float)
+    p = np.array([[0.6, 0.3, 0.08, 0.02]])
+    theta = np.array([4.0])
+    counts = rng.multinomial(depths.astype(np.int64)[None, :],
+                             rng.dirichlet(theta[0] * p[0], size=(1, depths.size)))
+    point = profile_point(summarise_counts(counts, depths), p, theta)
+    h = 1e-5 * p
+    up, centre, down = (_betabinom_sum(counts, depths, p + d, theta) for d in (h, 0 * h, -h))
+    np.testing.assert_allclose(point.score, (up - down) / (2 * h), rtol=1e-5)
+    np.testing.assert_allclose(point.information, -(up - 2 * centre + down) / h**2, rtol=1e-3)
+    g = 1e-5
+    shifted = [_betabinom_sum(counts, depths, p + h, theta * np.exp(sign * g))
+               - _betabinom_sum(counts, depths, p - h, theta * np.exp(sign * g))
+               for sign in (1, -1)]
+    np.testing.assert_allclose(point.drift, (shifted[0] - shifted[1]) / (4 * g * h), rtol=1e-3)
+
+
+def test_beta_curve_step_is_exact_for_a_beta_kernel():
+    # f(p) = alpha log p + gamma log(1 - p) peaks at alpha / (alpha + gamma) (the Beta mode
+    # with shapes alpha + 1, gamma + 1); the step matches f's score and curvature, so it lands
+    # there with the exact gain from any start.
+    alpha, gamma = np.array([[2.0, 50.0, 0.3]]), np.array([[30.0, 50.0, 900.0]])
+    start = np.array([[0.3, 0.02, 1e-5]])
+    score = alpha / start - gamma / (1 - start)
+    information = alpha / start**2 + gamma / (1 - start) ** 2
+    peak, gain = beta_curve_step(start, score, information)
+    np.testing.assert_allclose(peak, alpha / (alpha + gamma), rtol=1e-10)
+
+    def f(x):
+        return alpha * np.log(x) + gamma * np.log(1 - x)
+
+    np.testing.assert_allclose(gain, f(peak) - f(start), rtol=1e-9)
+
+
+def test_profile_matches_numerical_maximisation_over_p():
+    # Reference: for each taxon and grid theta, max over p of the sum of
+    # scipy.stats.betabinom.logpmf, by scipy.optimize on the log-odds of p. The one-step
+    # profile was measured within 0.05 log-likelihood units (module docstring).
+    design = snapshot_design(60, varying_depths(60, seed=2))
+    for theta in (5.0, 300.0):
+        counts, fit = neutral_batch(P, theta, None, design, 1, seed=5)
+        depths = design.depths.astype(float)
+        summary = summarise_counts(counts, design.depths)
+        start = np.where(fit.p > 0, fit.p, 0.5)
+        pilot = pilot_theta(counts, depths, fit.p)
+        multipliers = 2.0 ** np.arange(-3, 4)
+        mine = profile_grid(summary, start, pilot, multipliers) + _binomial_coefficients(
+            counts, depths)[..., None]
+        for i in np.flatnonzero(fit.p[0] > 0)[::3]:
+            for g, c in enumerate(multipliers):
+                def minus_loglik(eta, i=i, c=c):
+                    a = c * pilot[0] * special.expit(eta)
+                    return -stats.betabinom.logpmf(counts[0, :, i], depths, a,
+                                                   c * pilot[0] - a).sum()
+                best = optimize.minimize_scalar(minus_loglik, bracket=(
+                    special.logit(start[0, i]) - 0.1, special.logit(start[0, i]) + 0.1))
+                assert abs(mine[0, i, g] + best.fun) < 0.05, (theta, i, c)
 
 
 def test_stirling_series_error_bound():
@@ -91,6 +217,61 @@ def test_pilot_and_common_theta_estimate_theta_on_stationary_snapshots():
     for estimate, allowance in ((pilot, 0.0), (common, 0.03 * 40.0)):
         se = estimate.std(ddof=1) / np.sqrt(estimate.size)
         assert abs(estimate.mean() - 40.0) < 5 * se + allowance
+
+
+@pytest.mark.parametrize("theta", [10.0, 300.0])
+def test_neutral_snapshot_statistic_is_near_one_at_any_theta(theta):
+    # Source: Wilks (1938) Ann. Math. Stat. 9:60: with independent samples the LR of K' - 1
+    # restrictions is asymptotically chi-square(K' - 1), so LR / (K' - 1) has mean 1 whatever
+    # theta. With p_i fixed instead of profiled the mean was 3.5 at theta = 10 (module
+    # docstring). 100 tables: SE of the mean from their spread; 5 SE plus 0.08 for the shares
+    # of the rarest taxa, which sit near the boundary (measured 0.93-1.01).
+    design = snapshot_design(60, varying_depths(60, seed=2))
+    p = composition(40, seed=1)
+    counts, fit = neutral_batch(p, theta, None, design, 100, seed=9)
+    values = STAT.compute(counts, design, fit, None)
+    se = values.std(ddof=1) / np.sqrt(values.size)
+    assert abs(values.mean() - 1.0) < 5 * se + 0.08
+    result = STAT.fit_dispersion(counts, design, fit)
+    np.testing.assert_allclose(values, result.contribution.sum(axis=1)
+                               / (result.used.sum(axis=1) - 1))
+
+
+def test_autocorrelation_factor_is_the_variance_inflation_of_an_ar1_mean():
+    # With every sample deep (f_t -> 1) and daily spacing, c = 1 + (2/T) sum_{k>=1} (T - k)
+    # r^k, r = exp(-2 rate): the variance of the sum of T stationary AR(1) terms over T times
+    # their variance (Box & Jenkins 1976, "Time Series Analysis", AR(1) autocorrelation r^k).
+    n_samples, rate = 50, np.array([0.1, 0.7])
+    design = daily_design(n_samples, 10**12)
+    fit = NullFit(np.full((2, 3), 1 / 3), np.array([20.0, 20.0]), rate,
+                  np.zeros(2, dtype=bool))
+    lag = np.arange(1, n_samples)
+    r = np.exp(-2 * rate)[:, None]
+    expected = 1 + 2 * np.sum((n_samples - lag) * r**lag, axis=1) / n_samples
+    np.testing.assert_allclose(autocorrelation_factor(design, fit), expected, rtol=1e-9)
+    snapshot = NullFit(fit.p, fit.theta, None, fit.clipped)
+    np.testing.assert_array_equal(autocorrelation_factor(snapshot_design(50), snapshot), 1.0)
+    # Shallow samples carry mostly (independent) sampling noise: a smaller factor.
+    shallow = daily_design(n_samples, 50)
+    assert np.all(autocorrelation_factor(shallow, fit) < expected)
+
+
+@pytest.mark.slow
+def test_autocorrelation_factor_removes_most_of_the_rate_dependence():
+    # Neutral daily series (theta = 40, K = 40, T = 60): the raw composite LR more than
+    # doubles from rate 1 to rate 0.25 per day (measured 58 -> 136) because dependent samples
+    # are treated as independent; divided by c the means stay within 40% of each other
+    # (measured 45 and 36). 100 tables each: SE of a mean ~2.5% (statistic) and ~3 (raw LR);
+    # the bounds are more than 5 SE from the measured values.
+    design = daily_design(60, varying_depths(60, seed=2))
+    p = composition(40, seed=1)
+    raw, adjusted = [], []
+    for rate in (0.25, 1.0):
+        counts, fit = neutral_batch(p, 40.0, rate, design, 100, seed=11)
+        raw.append(STAT.fit_dispersion(counts, design, fit).contribution.sum(axis=1).mean())
+        adjusted.append(STAT.compute(counts, design, fit, None).mean())
+    assert raw[0] / raw[1] > 2.0
+    assert 1.0 / 1.4 < adjusted[0] / adjusted[1] < 1.4
 
 
 def test_shape_dtype_determinism_and_nonnegativity():
@@ -138,8 +319,10 @@ def test_absent_taxa_are_left_out_and_two_taxa_are_needed():
     assert np.all(np.isnan(STAT.compute(lonely, design, lonely_fit, None)))
 
 
-def test_diagnose_lists_taxon_thetas_and_contributions():
-    design = snapshot_design(80, 3000)
+@pytest.mark.parametrize("design", [snapshot_design(80, 3000),
+                                    daily_design(80, varying_depths(80, seed=2))],
+                         ids=["snapshot", "series"])
+def test_diagnose_lists_taxon_thetas_and_contributions(design):
     thetas = np.where(np.arange(P.size) % 2 == 0, 10.0, 160.0)
     counts = heterogeneous_dispersion(P, thetas, design, 1, seed=6)
     _, fit = fitted(counts, design)

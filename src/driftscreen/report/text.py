@@ -282,13 +282,16 @@ DIAGNOSTIC_LEGENDS = {
         "1; a trend or spread across classes points to niche structure.",
     "fluctuation_scaling":
         "Fluctuation scaling. Mean and variance of each taxon's relative abundance across "
-        "samples, the variance corrected for sequencing noise. The neutral expectation is "
+        "samples, the variance corrected for sequencing noise; the line is fitted with "
+        "weights that give rare taxa, whose variance is poorly determined, less say. The "
+        "neutral expectation is "
         "p (1 - p) / (1 + theta) per taxon; the replicates' exponent also carries sampling "
         "and estimation effects and is what the p-value compares with. b near 1 is "
         "drift-like, b near 2 points to multiplicative environmental noise.",
     "dispersion_heterogeneity":
         "Dispersion heterogeneity. LR part: the taxon's part of the likelihood-ratio "
-        "statistic (taxon-specific against common beta-binomial theta; the parts sum to the "
+        "statistic (taxon-specific against common beta-binomial theta, per taxon beyond the "
+        "first and, for time series, corrected for autocorrelation; the parts sum to the "
         "statistic). Own theta above the common one: the taxon varies less than the common "
         "theta implies; below: more. * at the end of the fitted range.",
 }
@@ -368,8 +371,8 @@ def dataset_report(result: NeutralityResult) -> str:
 STATISTIC_METHODS = {
     "stationary_divergence":
         "the Kullback-Leibler divergence of each taxon's abundance distribution from its "
-        "stationary neutral (beta-binomial) law, summed over taxa (after Fisher & Mehta "
-        "2014, PNAS 111:13111)",
+        "stationary neutral (beta-binomial) law, summed over taxa, rare taxa pooled into "
+        "groups (after Fisher & Mehta 2014, PNAS 111:13111)",
     "regrouping_invariance":
         "the variance, over R = {groupings} random groupings of taxa, of the log volatility "
         "of the groups' angular-transformed abundances (the grouping invariance of neutral "
@@ -377,9 +380,11 @@ STATISTIC_METHODS = {
         "transform of Anscombe 1948, Biometrika 35:246)",
     "fluctuation_scaling":
         "the exponent of Taylor's law between the sampling-corrected variance and the mean "
-        "of taxon abundances (Taylor 1961, Nature 189:732)",
+        "of taxon abundances, weighted by the precision of each taxon's variance (Taylor "
+        "1961, Nature 189:732)",
     "dispersion_heterogeneity":
-        "the likelihood ratio of taxon-specific against common beta-binomial dispersion",
+        "the likelihood ratio of taxon-specific against common beta-binomial dispersion, "
+        "with each taxon's mean profiled, per taxon and corrected for autocorrelation",
 }
 
 

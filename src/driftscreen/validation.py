@@ -41,10 +41,13 @@ from driftscreen.neutral.wright_fisher import simulate_wright_fisher, wright_fis
 from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic
 from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
 
-#: Individuals in the discrete Wright-Fisher community (at least; raised for short gaps).
+#: Individuals in the discrete Wright-Fisher community (at least).
 WRIGHT_FISHER_SIZE = 2000
+#: Generations in the shortest sampling interval (at least): sampling times are rounded to
+#: whole generations, so fewer would jitter the times the test is told about.
+WRIGHT_FISHER_GENERATIONS = 50
 #: Largest Wright-Fisher community the study will simulate.
-WRIGHT_FISHER_MAX_SIZE = 50_000
+WRIGHT_FISHER_MAX_SIZE = 1_000_000
 
 
 @dataclass(frozen=True)
@@ -126,7 +129,7 @@ def wright_fisher_counts(model: NeutralModel, design: Design,
                          rng: np.random.Generator) -> np.ndarray:
     """One Wright-Fisher dataset matching (theta, rate, times): counts (T, K)."""
     shortest = float(np.min(np.diff(design.times)))
-    needed = int(np.ceil(2.0 / (model.kappa * shortest)))
+    needed = int(np.ceil(WRIGHT_FISHER_GENERATIONS / (model.kappa * shortest)))
     size = int(min(max(WRIGHT_FISHER_SIZE, needed, 2 * model.theta), WRIGHT_FISHER_MAX_SIZE))
     settings = wright_fisher_for(model, design, size)
     return simulate_wright_fisher(**settings, n_replicates=1, rng=rng)[0]

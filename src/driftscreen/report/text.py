@@ -200,7 +200,7 @@ def stationary_block(diagnosis: pd.DataFrame) -> list[str]:
     rows = [[number(row.p), percent(row.observed_zero_fraction),
              percent(row.expected_zero_fraction), number(row.contribution, 3), row.direction]
             for row in top.itertuples()]
-    lines = wrap(f"Stationary divergence: the {len(top)} taxa contributing most")
+    lines = wrap("Stationary divergence: taxa contributing most")
     return lines + taxon_table(["taxon", "p", "zero obs", "zero exp", "part", "variability"],
                                top["taxon"].tolist(), members, rows, "lrrrrl")
 
@@ -255,8 +255,7 @@ def dispersion_block(diagnosis: pd.DataFrame) -> list[str]:
              number(row.theta_common), number(row.lr_contribution, 3),
              percent(row.lr_contribution / total) if total > 0 else "-"]
             for row in top.itertuples()]
-    lines = wrap(f"Dispersion heterogeneity: the {len(top)} taxa with the largest part of "
-                 "the LR statistic")
+    lines = wrap("Dispersion heterogeneity: taxa with the largest part of the LR statistic")
     return lines + taxon_table(["taxon", "p", "own theta", "common theta", "LR part", "share"],
                                top["taxon"].tolist(), [1] * len(top), rows, "lrrrrr")
 

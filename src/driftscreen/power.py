@@ -27,12 +27,12 @@ import pandas as pd
 from joblib import Parallel, delayed
 from scipy import stats
 
-from driftscreen import __version__, seeds
+from driftscreen import seeds
 from driftscreen.calibrate import COMBINED, CalibrationSettings, neutrality_test
 from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
 from driftscreen.niche import LotkaVolterraParameters, NoisyLotkaVolterra, StochasticLogistic
-from driftscreen.report.text import duration_text, heading, number, table, wrap, wrapped_pairs
+from driftscreen.report.text import duration_text, number
 from driftscreen.results import NeutralityResult
 from driftscreen.screen import unanalysable_reason
 from driftscreen.statistics.registry import default_statistics
@@ -578,6 +578,8 @@ class PowerResult:
 
     def summary(self) -> str:
         """Fixed-width plain-text report (at most 78 columns)."""
+        from driftscreen.report.power import power_report
+
         return power_report(self)
 
 
@@ -658,115 +660,6 @@ def power_curve(design: PowerDesign, alternative: str | NicheAlternative = "logi
                      for task, out in zip(tasks, outputs) if out.failure)
     return PowerResult(design, alternative, np.array(grid), names, pvalues, failures, alpha,
                        settings)
-
-
-# ----------------------------------------------------------------------------- report
-def percent(value: float) -> str:
-    return "-" if not math.isfinite(value) else f"{100.0 * value:.0f}"
-
-
-def power_cell(power: float, low: float, high: float) -> str:
-    """``84 (71-92)``: power and its interval in percent."""
-    return f"{percent(power)} ({percent(low)}-{percent(high)})"
-
-
-def column_labels(names: Sequence[str]) -> list[str]:
-    """Short column headers: the first word of each name, the full name if that is ambiguous."""
-    firsts = [name.split("_")[0] for name in names]
-    return [first if firsts.count(first) == 1 else name for first, name in zip(firsts, names)]
-
-
-def power_table(result: PowerResult) -> list[str]:
-    """Strength x statistic table of power (%) with 95% Wilson intervals."""
-    low, high = result.interval()
-    power = result.power
-    labels = column_labels(result.statistics)
-    rows = []
-    for i, strength in enumerate(result.strengths):
-        mark = " *" if result.alternative.is_neutral_limit(float(strength)) else ""
-        rows.append([f"{strength:g}{mark}"] + [power_cell(power[i, j], low[i, j], high[i, j])
-                                               for j in range(len(result.statistics))])
-    return table([result.alternative.strength_name] + labels, rows)
-
-
-def strength_text(value: float, alternative: NicheAlternative) -> str:
-    """``0.0023 (sigma; each taxon's abundance varies with a CV of 3.4%)``."""
-    return f"{value:.2g} ({alternative.strength_meaning(value)})"
-
-
-def detectable_sentence(result: PowerResult) -> str:
-    """The minimum detectable strength of ``combined``, with how it was obtained."""
-    mde, optimistic, pessimistic = result.minimum_detectable()
-    alt, grid = result.alternative, result.strengths
-    power = result.combined_power()
-    target = f"{TARGET_POWER:.0%}"
-    if math.isinf(mde):
-        return (f"Not reached within the grid: combined power stays below {target} up to "
-                f"strength {grid[-1]:g} ({percent(power[-1])}% there).")
-    if mde == grid[0]:
-        return (f"At or below {strength_text(mde, alt)}: combined power is already "
-                f"{percent(power[0])}% at the smallest strength of the grid.")
-    j = int(np.flatnonzero(power >= TARGET_POWER)[0])
-    scale = "log(strength)" if grid[j - 1] > 0 else "strength"
-    spread = (f"beyond {grid[-1]:g}" if math.isinf(pessimistic) else f"{pessimistic:.2g}")
-    return (f"{strength_text(mde, alt)}, where combined power reaches {target}; "
-            f"interpolated linearly in {scale} between {grid[j - 1]:g} "
-            f"({percent(power[j - 1])}%) and {grid[j]:g} ({percent(power[j])}%). "
-            f"Allowing for Monte Carlo error: {optimistic:.2g} to {spread} (where the "
-            f"upper and the lower bounds of the 95% intervals reach {target}).")
-
-
-def precision_sentence(n_datasets: int) -> str:
-    """How precisely n datasets pin down a power of 50% and of 80%."""
-    halves = []
-    for share in (0.5, 0.8):
-        low, high = wilson_interval(round(share * n_datasets), n_datasets)
-        halves.append(float(high - low) / 2.0)
-    return (f"Monte Carlo precision: with {n_datasets} datasets per strength, a power near "
-            f"50% is known to about +-{100 * halves[0]:.0f} and near 80% to about "
-            f"+-{100 * halves[1]:.0f} percentage points (half-widths of 95% Wilson "
-            "intervals); more datasets per strength narrow them.")
-
-
-def power_report(result: PowerResult) -> str:
-    """The report of :meth:`PowerResult.summary`."""
-    alt, settings = result.alternative, result.settings
-    lines = heading(f"driftscreen {__version__}: power against the {alt.label} niche "
-                    "alternative", "=")
-    lines += wrapped_pairs(result.design.describe() + [
-        ("Abundances", result.design.abundance_text(alt)),
-        ("Alternative", alt.description()),
-        ("Datasets", f"{result.n_datasets} simulated per strength, each tested in full"),
-        ("Calibration", f"B = {settings.replicates} neutral replicates, R = "
-                        f"{settings.groupings} groupings, alpha = {result.alpha:g}"),
-        ("Seed", str(settings.seed)),
-    ]) + [""]
-    lines += heading(f"Power (%) at alpha = {result.alpha:g}, with 95% Wilson intervals")
-    lines += power_table(result)
-    labels = column_labels(result.statistics)
-    legend = [f"{label} = {name}" for label, name in zip(labels, result.statistics)
-              if label != name]
-    notes = []
-    if legend:
-        notes.append("Columns: " + ", ".join(legend) + ".")
-    if any(alt.is_neutral_limit(float(s)) for s in result.strengths):
-        notes.append("* neutral limit: its rejection rate is the false-positive rate, "
-                     f"which should be near alpha = {result.alpha:g}.")
-    lines += [""] + [line for note in notes for line in wrap(note)] + [""]
-    lines += heading(f"Minimum detectable strength ({TARGET_POWER:.0%} power, combined)")
-    lines += wrap(detectable_sentence(result)) + [""]
-    if result.failures:
-        lines += heading("Notes") + wrap(
-            f"{len(result.failures)} simulated datasets could not be tested and count as "
-            f"not rejected; the first: {result.failures[0]}") + [""]
-    lines += heading("Reading this report") + wrap(
-        "Power is the share of simulated niche communities, sampled with this design, in "
-        f"which the calibrated test rejects neutrality at alpha = {result.alpha:g}: each "
-        "simulated dataset is fitted, calibrated against its own neutral replicates and "
-        "tested exactly as `driftscreen test` would. A strength below the minimum "
-        "detectable one is niche structure that this design would usually miss.") + [""]
-    lines += wrap(precision_sentence(result.n_datasets))
-    return "\n".join(lines) + "\n"
 
 
 # ----------------------------------------------------------------------------- detectable line

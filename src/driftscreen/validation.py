@@ -24,7 +24,6 @@ import sys
 import time
 from collections.abc import Sequence
 from dataclasses import asdict, dataclass
-from pathlib import Path
 
 import numpy as np
 import pandas as pd

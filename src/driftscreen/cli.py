@@ -105,8 +105,10 @@ def read_input(args: argparse.Namespace) -> list:
     return read_datasets(args.counts, args.metadata, **intake_options(args))
 
 
-def add_calibration_options(parser: argparse.ArgumentParser, replicates: int = 999) -> None:
-    group = parser.add_argument_group("calibration")
+def add_calibration_options(parser: argparse.ArgumentParser, replicates: int = 999,
+                            title: str = "calibration") -> argparse._ArgumentGroup:
+    """--replicates, --groupings, --seed and --jobs, in an argument group it returns."""
+    group = parser.add_argument_group(title)
     group.add_argument("--replicates", metavar="B", type=positive_int, default=replicates,
                        help=f"neutral bootstrap replicates (default {replicates}); "
                             "p-values resolve down to 1/(B+1)")
@@ -116,6 +118,7 @@ def add_calibration_options(parser: argparse.ArgumentParser, replicates: int = 9
                        help="master random seed (default 0)")
     group.add_argument("--jobs", metavar="J", type=positive_int, default=1,
                        help="worker processes (results do not depend on it; default 1)")
+    return group
 
 
 # ----------------------------------------------------------------------------- simulate
@@ -303,17 +306,9 @@ def add_power(sub: argparse._SubParsersAction) -> None:
                        help="generation time of the niche dynamics in days (default 1)")
     group.add_argument("--noise", metavar="SIGMA", type=float,
                        help="environmental noise of the lotka-volterra community (default 0)")
-    group = p.add_argument_group("simulation and calibration")
+    group = add_calibration_options(p, replicates=199, title="simulation and calibration")
     group.add_argument("--datasets", metavar="N", type=positive_int, default=50,
                        help="simulated datasets per strength (default 50)")
-    group.add_argument("--replicates", metavar="B", type=positive_int, default=199,
-                       help="neutral replicates per test (default 199)")
-    group.add_argument("--groupings", metavar="R", type=positive_int, default=200,
-                       help="random groupings of taxa for regrouping_invariance (default 200)")
-    group.add_argument("--seed", metavar="S", type=int, default=0,
-                       help="master random seed (default 0)")
-    group.add_argument("--jobs", metavar="J", type=positive_int, default=1,
-                       help="worker processes (results do not depend on it; default 1)")
     group.add_argument("--alpha", metavar="A", type=float, default=0.05,
                        help="level of the tests (default 0.05)")
     p.add_argument("--output", metavar="FILE", help="also write the report to FILE")

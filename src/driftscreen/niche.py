@@ -82,8 +82,25 @@ def _substep_counts(gaps: np.ndarray, max_step: float) -> np.ndarray:
     return np.maximum(1, np.ceil(gaps / max_step - 1e-9)).astype(np.int64)
 
 
+class _SampledCommunity:
+    """What both niche models share: abundances from their log-abundance paths, and reads."""
+
+    def _log_abundances(self, design: Design, n_replicates: int,
+                        rng: np.random.Generator) -> np.ndarray:
+        raise NotImplementedError
+
+    def abundances(self, design: Design, n_replicates: int,
+                   rng: np.random.Generator) -> np.ndarray:
+        """Absolute abundances x (before normalisation), shape ``(R, T, K)``."""
+        return np.exp(self._log_abundances(design, n_replicates, rng))
+
+    def simulate(self, design: Design, n_replicates: int, rng: np.random.Generator) -> np.ndarray:
+        """Read counts ``(R, T, K)`` int64 with the design's times and depths."""
+        return sequence_counts(self._log_abundances(design, n_replicates, rng), design.depths, rng)
+
+
 @dataclass(frozen=True)
-class StochasticLogistic:
+class StochasticLogistic(_SampledCommunity):
     """Stochastic logistic model per taxon (Grilli 2020, Nat. Commun. 11:4743,
     "Macroecological laws describing variation and diversity in microbial communities").
 
@@ -174,15 +191,6 @@ class StochasticLogistic:
             path[:, t] = log_x
         return path
 
-    def abundances(self, design: Design, n_replicates: int,
-                   rng: np.random.Generator) -> np.ndarray:
-        """Absolute abundances x (before normalisation), shape ``(R, T, K)``."""
-        return np.exp(self._log_abundances(design, n_replicates, rng))
-
-    def simulate(self, design: Design, n_replicates: int, rng: np.random.Generator) -> np.ndarray:
-        """Read counts ``(R, T, K)`` int64 with the design's times and depths."""
-        return sequence_counts(self._log_abundances(design, n_replicates, rng), design.depths, rng)
-
     def _log_abundances(self, design: Design, n_replicates: int,
                         rng: np.random.Generator) -> np.ndarray:
         capacities = self.draw_capacities(n_replicates, rng)
@@ -248,7 +256,7 @@ class _StepRates:
 
 
 @dataclass(frozen=True)
-class NoisyLotkaVolterra:
+class NoisyLotkaVolterra(_SampledCommunity):
     """Competitive generalised Lotka-Volterra community with environmental noise.
 
     The standard gLV (Lotka 1925; Volterra 1926), as used for gut communities by Stein et
@@ -352,15 +360,6 @@ class NoisyLotkaVolterra:
                 log_x = rates.step(log_x, gap / n_sub, rng)
             path[:, :, t] = log_x
         return path
-
-    def abundances(self, design: Design, n_replicates: int,
-                   rng: np.random.Generator) -> np.ndarray:
-        """Absolute abundances x (before normalisation), shape ``(R, T, K)``."""
-        return np.exp(self._log_abundances(design, n_replicates, rng))
-
-    def simulate(self, design: Design, n_replicates: int, rng: np.random.Generator) -> np.ndarray:
-        """Read counts ``(R, T, K)`` int64 with the design's times and depths."""
-        return sequence_counts(self._log_abundances(design, n_replicates, rng), design.depths, rng)
 
     @property
     def _max_step(self) -> float:

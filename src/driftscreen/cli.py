@@ -27,6 +27,13 @@ def positive_int(text: str) -> int:
     return value
 
 
+def at_least_two(text: str) -> int:
+    value = int(text)
+    if value < 2:
+        raise argparse.ArgumentTypeError(f"must be at least 2, got {text}")
+    return value
+
+
 def positive_float(text: str) -> float:
     value = float(text)
     if not value > 0:
@@ -131,8 +138,8 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
                                    "behind them.")
     p.add_argument("--out", metavar="DIR", required=True,
                    help="folder for counts.tsv, metadata.tsv and truth.tsv (created if needed)")
-    p.add_argument("--taxa", type=positive_int, default=40, help="number of taxa (default 40)")
-    p.add_argument("--samples", type=positive_int, default=100,
+    p.add_argument("--taxa", type=at_least_two, default=40, help="number of taxa (default 40)")
+    p.add_argument("--samples", type=at_least_two, default=100,
                    help="samples per dataset (default 100)")
     p.add_argument("--interval", type=positive_float, default=1.0,
                    help="mean days between samples (default 1)")

@@ -45,8 +45,6 @@ def simulated_dataset(name: str, spec: DesignSpec, n_taxa: int, seed: int, *,
     ``model`` is ``"neutral"`` (theta, rate) or a niche model of :mod:`driftscreen.niche`
     with its default parameters and, if given, its ``strength``.
     """
-    from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic
-
     rng = seeds.generator(seeds.dataset_stream(seed, name))
     design = spec.draw(rng)
     if model == "neutral":
@@ -60,13 +58,26 @@ def simulated_dataset(name: str, spec: DesignSpec, n_taxa: int, seed: int, *,
                   "rate": repr(rate) if design.is_time_series else "", "strength": ""}
                  for i, p_i in enumerate(null.p)]
     else:
-        niche_class = StochasticLogistic if model == "logistic" else NoisyLotkaVolterra
-        niche = niche_class(n_taxa) if strength is None else niche_class(n_taxa, strength=strength)
+        niche = niche_model(model, n_taxa, strength)
         counts = niche.simulate(design, 1, rng)[0]
         note = f"simulated {model} niche community: strength {niche.strength:g}"
         truth = [{"dataset": name, "model": model, "taxon": "", "p": "", "theta": "",
                   "rate": "", "strength": repr(float(niche.strength))}]
     return as_dataset(name, counts, design, (note + f", seed {seed}",)), truth
+
+
+def niche_model(model: str, n_taxa: int, strength: float | None):
+    """The niche model ``model`` of :mod:`driftscreen.niche` with its default parameters and,
+    if given, ``strength``; an out-of-range strength is an input error."""
+    from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic
+
+    niche_class = StochasticLogistic if model == "logistic" else NoisyLotkaVolterra
+    try:
+        return niche_class(n_taxa) if strength is None else niche_class(n_taxa, strength=strength)
+    except ValueError as error:
+        raise InputError(str(error), place="option --strength",
+                         fix="logistic strengths (sigma) lie in [0, 2); Lotka-Volterra "
+                             "strengths are >= 0") from None
 
 
 def neutral_collection(n_datasets: int, spec: DesignSpec, n_taxa: int, theta: float,

@@ -70,7 +70,11 @@ def test_strength_without_a_niche_model_is_an_input_error(tmp_path, capsys) -> N
 @pytest.mark.parametrize("options", [("--taxa", "1"), ("--samples", "1"),
                                      ("--model", "logistic", "--strength", "2")])
 def test_impossible_simulations_are_input_errors(tmp_path, capsys, options) -> None:
-    assert main(["simulate", "--out", str(tmp_path / "sim"), *options]) == 2
+    try:
+        code = main(["simulate", "--out", str(tmp_path / "sim"), *options])
+    except SystemExit as stop:  # usage errors found while parsing the options
+        code = stop.code
+    assert code == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "Traceback" not in err
     assert not (tmp_path / "sim" / "counts.tsv").exists()

@@ -16,6 +16,13 @@ from driftscreen import __version__
 from driftscreen.errors import InputError
 
 EXIT_INPUT = 2
+
+
+class Parser(argparse.ArgumentParser):
+    """An argument parser whose usage errors are one line (and exit status 2)."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.exit(EXIT_INPUT, f"{self.prog}: error: {message}; see '{self.prog} --help'\n")
 #: What `screen --figures` holds when given without a folder (then OUT/figures).
 FIGURES_IN_OUT = ""
 
@@ -373,7 +380,7 @@ def run_demo(args: argparse.Namespace) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = Parser(
         prog="driftscreen",
         description="Are a microbial community's ups and downs neutral drift plus immigration, "
                     "or niche structure? Fit the neutral null, calibrate neutrality statistics "

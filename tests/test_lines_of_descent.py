@@ -13,8 +13,10 @@ from decimal import Decimal, localcontext
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
+from scipy import integrate
 from scipy.special import digamma, ndtr
+
+from chi_square import pooled_chi_square_pvalue
 
 from driftscreen.neutral.lines_of_descent import (
     CorrectedNormal,
@@ -108,17 +110,7 @@ def pooled_chi_square(draws: np.ndarray, offset: int, pmf: np.ndarray) -> float:
     observed = np.bincount(draws - offset, minlength=pmf.size)[:pmf.size]
     assert observed.sum() == draws.size, "draws outside the tabulated support"
     expected = draws.size * pmf
-    cells_o, cells_e, run_o, run_e = [], [], 0.0, 0.0
-    for o, e in zip(observed, expected):
-        run_o, run_e = run_o + o, run_e + e
-        if run_e >= 5.0:
-            cells_o.append(run_o)
-            cells_e.append(run_e)
-            run_o = run_e = 0.0
-    cells_o[-1] += run_o
-    cells_e[-1] += run_e
-    o, e = np.array(cells_o), np.array(cells_e)
-    return float(stats.chi2.sf(np.sum((o - e) ** 2 / e), o.size - 1))
+    return pooled_chi_square_pvalue(observed, expected)
 
 
 @pytest.mark.parametrize("theta", THETAS)

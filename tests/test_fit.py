@@ -17,8 +17,11 @@ from driftscreen.errors import InputError
 from driftscreen.neutral import fit as fitmod
 from driftscreen.neutral.fit import (correlation_weight, fit, fit_batch, pooled_fractions,
                                      rate_bounds, variogram)
-from driftscreen.neutral.model import NeutralModel
+from driftscreen.neutral.model import NeutralModel, NullOptions
 from driftscreen.neutral.simulate import simulate
+
+#: The design note's estimator: multinomial reads, p the pooled read fraction.
+MULTINOMIAL = NullOptions(noise="off", start="stationary")
 
 
 def lognormal_composition(n_taxa: int, rng: np.random.Generator, spread: float = 1.5) -> np.ndarray:
@@ -121,7 +124,7 @@ def test_series_theta_and_rate_recovered(theta: float, median_depth: float, n_sa
     design = irregular_design(n_samples, median_depth, rng)
     rate = -np.log(lag1_corr)  # mean gap is 1 day
     model = NeutralModel(lognormal_composition(60, rng, spread=1.9), theta, rate)
-    result = fit_batch(simulate(model, design, 300, rng), design)
+    result = fit_batch(simulate(model, design, 300, rng), design, MULTINOMIAL)
     assert not result.clipped.any()
     theta_mean, theta_se = mean_and_se(result.theta)
     rate_mean, rate_se = mean_and_se(result.rate)
@@ -179,29 +182,37 @@ def test_expected_heterozygosity_of_p_hat() -> None:
     assert abs(mean - independent) > 20 * se
 
 
-def test_theta_and_rate_solve_the_moment_equations() -> None:
-    """At the fitted (v, rate) the pooled spread and adjacent-increment equations hold:
-    E[Q]/E[H] and E[D]/E[H] as in section 5 of the design note, recomputed here directly."""
+@pytest.mark.parametrize("precision", [np.inf, 300.0])
+def test_theta_rate_and_noise_solve_the_moment_equations(precision: float) -> None:
+    """At the fitted (v, rate, g) the pooled spread equation and the increment equations at
+    lags 1 and 2 hold, recomputed here directly: section 5 of the design note with the
+    sampling variance 1/n_t replaced by s_t = g + (1 - g)/n_t, and the nugget
+    2 g (1 - v) Pi that independent Dirichlet-multinomial read noise adds at every lag."""
     rng = np.random.default_rng(32)
-    design = irregular_design(30, 3_000, rng)
-    counts = simulate(NeutralModel(lognormal_composition(20, rng), 5.0, 0.2), design, 1, rng)[0]
-    model = fit(counts, design)
+    design = irregular_design(60, 3_000, rng)
+    truth = NeutralModel(lognormal_composition(20, rng), 30.0, 0.2,
+                         0.0 if np.isinf(precision) else 1 / (1 + precision))
+    counts = simulate(truth, design, 1, rng)[0]
+    model = fit(counts, design, NullOptions(start="stationary"))
+    g, v = model.noise, 1 / (1 + model.theta)
     depths = design.depths.astype(float)
     w = depths / depths.sum()
     y = counts / depths[:, None]
     hetero = np.sum(model.p * (1 - model.p))
     spread = np.sum(w[:, None] * (y - model.p) ** 2)
-    noise = y * (1 - y) / (depths[:, None] - 1)
-    increments = np.sum(np.diff(y, axis=0) ** 2 - noise[1:] - noise[:-1])
-    v = 1 / (1 + model.theta)
+    binomial = y * (1 - y) / (depths[:, None] - 1)
     r_w = float(correlation_weight(np.array(model.rate), design))
-    s1, s2 = np.sum(w / depths), np.sum(w**2 / depths)
+    s_t = g + (1 - g) / depths
+    s1, s2 = np.sum(w * s_t), np.sum(w**2 * s_t)
     denominator = 1 - v * r_w - (1 - v) * s2
     assert spread / hetero == pytest.approx((v * (1 - r_w) + (1 - v) * (s1 - s2)) / denominator,
                                             rel=1e-9)
-    adjacent = np.sum(-np.expm1(-model.rate * np.diff(design.times)))
-    # the rate is interpolated on a log grid of step 0.05: the equation holds to ~1%
-    assert increments / hetero == pytest.approx(2 * v * adjacent / denominator, rel=0.02)
+    for lag in (1, 2):
+        increments = np.sum((y[lag:] - y[:-lag]) ** 2 - binomial[lag:] - binomial[:-lag])
+        shape = np.sum(-np.expm1(-model.rate * (design.times[lag:] - design.times[:-lag])))
+        predicted = 2 * (v * shape + g * (1 - v) * (design.n_samples - lag)) / denominator
+        # rate and noise are interpolated on grids: the equations hold to a few per cent
+        assert increments / hetero == pytest.approx(predicted, rel=0.03)
 
 
 def test_variogram_expectation_matches_section_2_covariances() -> None:
@@ -244,7 +255,7 @@ def test_rate_matches_a_root_finder() -> None:
     design = irregular_design(40, 5_000, rng)
     model = NeutralModel(lognormal_composition(50, rng), 100.0, 0.4)
     counts = simulate(model, design, 20, rng)
-    result = fit_batch(counts, design)
+    result = fit_batch(counts, design, MULTINOMIAL)
     depths = design.depths.astype(float)
     w = depths / depths.sum()
     s1, s2 = np.sum(w / depths), np.sum(w**2 / depths)

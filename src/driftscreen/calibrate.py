@@ -4,7 +4,11 @@ Recipe (Davison & Hinkley 1997, "Bootstrap Methods and their Application", ch. 4
 
 1. fit the neutral null to the data (:func:`driftscreen.neutral.fit.fit_batch`);
 2. simulate B neutral replicate datasets with the data's own taxa, times and depths
-   (:func:`driftscreen.neutral.simulate.simulate`);
+   (:func:`driftscreen.neutral.simulate.simulate`); a time series is by default
+   conditioned on its observed first sample
+   (:func:`driftscreen.neutral.simulate.simulate_conditioned`), so a community still
+   relaxing from a disturbance is compared with neutral communities relaxing from the
+   same start, and reads carry the technical noise estimated from the data.
    The moment estimates of theta and rate are biased in short or strongly autocorrelated
    series, and the null distributions of several statistics depend on them; so a pilot
    of neutral replicates first measures the estimators' median bias on the log scale and
@@ -13,7 +17,7 @@ Recipe (Davison & Hinkley 1997, "Bootstrap Methods and their Application", ch. 4
 3. re-fit the null on every replicate and recompute every statistic on it, so that the
    replicates go through the same estimation step as the data;
 4. p-value = (1 + #replicates at least as extreme) / (B + 1);
-5. ``combined``: the Cauchy combination (Liu & Xie 2020) of the statistics' p-values,
+5. ``combined``: the harmonic mean p-value (Wilson 2019) of the statistics' p-values,
    itself calibrated against the replicates' own leave-one-out p-values.
 
 Replicates are simulated in chunks whose size depends only on the design; chunk ``i``
@@ -31,9 +35,15 @@ from joblib import Parallel, delayed
 
 from driftscreen import seeds
 from driftscreen.dataset import Dataset, Design
-from driftscreen.neutral.fit import fit_batch
-from driftscreen.neutral.model import NeutralModel, NullFit
-from driftscreen.neutral.simulate import simulate
+from driftscreen.neutral.fit import NOISE_GRID, fit_batch, fitted_model
+from driftscreen.neutral.model import (
+    NeutralModel,
+    NoiseOption,
+    NullFit,
+    NullOptions,
+    StartOption,
+)
+from driftscreen.neutral.simulate import simulate, simulate_conditioned
 from driftscreen.results import (
     DatasetSummary,
     NeutralityResult,
@@ -41,7 +51,7 @@ from driftscreen.results import (
     StatisticResult,
 )
 from driftscreen.statistics.base import Statistic
-from driftscreen.statistics.combination import cauchy_combination
+from driftscreen.statistics.combination import harmonic_mean_pvalue
 from driftscreen.statistics.fluctuation_scaling import taylor_fit
 from driftscreen.statistics.registry import default_statistics
 
@@ -67,6 +77,7 @@ class CalibrationSettings:
     replicates: int = 999
     groupings: int = 200
     seed: int = 0
+    null: NullOptions = NullOptions()
 
     def __post_init__(self) -> None:
         if self.replicates < 1:
@@ -85,6 +96,8 @@ class ChunkTask:
     simulation_stream: np.random.SeedSequence
     statistics_stream: np.random.SeedSequence
     statistics: tuple[Statistic, ...]
+    options: NullOptions = NullOptions()
+    first_counts: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -94,6 +107,7 @@ class ChunkOutput:
     values: np.ndarray
     theta: np.ndarray
     rate: np.ndarray | None
+    noise: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -110,8 +124,8 @@ class CalibrationPlan:
 
     @property
     def raw_model(self) -> NeutralModel:
-        """The moment estimates before bias correction."""
-        return self.fit.model(0)
+        """The moment estimates before bias correction, with the fit's flags."""
+        return fitted_model(self.fit, self.dataset.design, self.settings.null)
 
 
 def chunk_size_for(design: Design, n_taxa: int) -> int:
@@ -137,26 +151,60 @@ def median_log_bias(estimate: float, replicates: np.ndarray) -> float:
     return float(np.clip(bias, -np.log(MAX_BIAS_FACTOR), np.log(MAX_BIAS_FACTOR)))
 
 
-def bias_corrected_model(model: NeutralModel, design: Design,
-                         stream: np.random.SeedSequence, clipped: bool = False) -> NeutralModel:
-    """The model with theta and rate corrected for the median bias of their estimators.
+def simulate_null(model: NeutralModel, design: Design, n_replicates: int,
+                  rng: np.random.Generator, first_counts: np.ndarray | None) -> np.ndarray:
+    """Neutral replicates: conditioned on ``first_counts`` when given, else unconditioned."""
+    if first_counts is None:
+        return simulate(model, design, n_replicates, rng)
+    return simulate_conditioned(model, design, n_replicates, first_counts, rng)
 
-    A pilot of :data:`PILOT_REPLICATES` replicates is simulated at ``model`` and re-fitted;
-    each parameter is divided by the factor by which the estimator overshot its median.
-    A clipped fit (theta at the end of its range: no drift variance detectable) is left
-    as it is: there is no bias to measure at a boundary.
+
+def conditioning_sample(dataset: Dataset, options: NullOptions) -> np.ndarray | None:
+    """The observed first sample that replicates are conditioned on (time series only)."""
+    if not (options.conditioned and dataset.design.is_time_series):
+        return None
+    return dataset.counts[0]
+
+
+def noise_bias_corrected(noise: float, replicates: np.ndarray) -> float:
+    """g minus the median overshoot of its estimator, kept in the estimator's range.
+
+    Additive, because g = 0 (no technical noise) is a value the estimator reaches.
+    """
+    values = replicates[np.isfinite(replicates)]
+    if noise <= 0 or values.size == 0:
+        return noise
+    return float(np.clip(2.0 * noise - np.median(values), 0.0, NOISE_GRID[-1]))
+
+
+def bias_corrected_model(model: NeutralModel, design: Design,
+                         stream: np.random.SeedSequence, clipped: bool = False,
+                         options: NullOptions = NullOptions(),
+                         first_counts: np.ndarray | None = None) -> NeutralModel:
+    """The model with theta, rate and noise corrected for the bias of their estimators.
+
+    A pilot of :data:`PILOT_REPLICATES` replicates is simulated at ``model`` (conditioned
+    on ``first_counts`` when given) and re-fitted; theta and the rate are divided by the
+    factor by which the estimator overshot its median, an estimated noise is moved back by
+    its median overshoot. A clipped fit (theta at the end of its range: no drift variance
+    detectable) is left as it is: there is no bias to measure at a boundary.
     """
     if clipped:
         return model
-    pilot = fit_batch(simulate(model, design, PILOT_REPLICATES, seeds.generator(stream)), design)
+    pilot = fit_batch(simulate_null(model, design, PILOT_REPLICATES, seeds.generator(stream),
+                                    first_counts), design, options)
     theta = model.theta * np.exp(-median_log_bias(model.theta, pilot.theta))
     rate = None
     if model.rate is not None and pilot.rate is not None:
         rate = model.rate * np.exp(-median_log_bias(model.rate, pilot.rate))
+    noise = model.noise
+    if options.fixed_noise is None:
+        noise = noise_bias_corrected(model.noise, pilot.noise)
     note = (f"theta (and rate) bias-corrected by a pilot of {PILOT_REPLICATES} neutral "
             f"replicates: moment estimates theta {model.theta:.4g}"
-            + (f", rate {model.rate:.4g} per day" if model.rate is not None else ""))
-    return NeutralModel(model.p, theta, rate, model.flags + (note,))
+            + (f", rate {model.rate:.4g} per day" if model.rate is not None else "")
+            + (f", read precision {model.precision:.4g}" if model.noise > 0 else ""))
+    return NeutralModel(model.p, theta, rate, noise, model.flags + (note,))
 
 
 def plan_calibration(dataset: Dataset, settings: CalibrationSettings,
@@ -168,28 +216,32 @@ def plan_calibration(dataset: Dataset, settings: CalibrationSettings,
                                               n_groupings=settings.groupings))
     root = seeds.dataset_stream(settings.seed, dataset.name)
     statistics_stream = seeds.substream(root, seeds.STATISTICS)
-    observed_fit = fit_batch(dataset.counts[None], design)
+    options = settings.null
+    first_counts = conditioning_sample(dataset, options)
+    observed_fit = fit_batch(dataset.counts[None], design, options)
     observed = compute_statistics(statistics, dataset.counts[None], design, observed_fit,
                                   statistics_stream)[0]
-    model = bias_corrected_model(observed_fit.model(0), design, seeds.substream(root, seeds.PILOT),
-                                 bool(observed_fit.clipped[0]))
+    model = bias_corrected_model(fitted_model(observed_fit, design, options), design,
+                                 seeds.substream(root, seeds.PILOT),
+                                 bool(observed_fit.clipped[0]), options, first_counts)
     size = chunk_size_for(design, dataset.n_taxa)
     starts = range(0, settings.replicates, size)
     tasks = tuple(
         ChunkTask(model, design, min(size, settings.replicates - start),
-                  seeds.substream(root, seeds.SIMULATION, index), statistics_stream, statistics)
+                  seeds.substream(root, seeds.SIMULATION, index), statistics_stream, statistics,
+                  options, first_counts)
         for index, start in enumerate(starts))
     return CalibrationPlan(dataset, settings, observed_fit, model, statistics, observed, tasks)
 
 
 def run_chunk(task: ChunkTask) -> ChunkOutput:
     """Simulate, re-fit and compute the statistics for one chunk of replicates."""
-    counts = simulate(task.model, task.design, task.n_replicates,
-                      seeds.generator(task.simulation_stream))
-    refit = fit_batch(counts, task.design)
+    counts = simulate_null(task.model, task.design, task.n_replicates,
+                           seeds.generator(task.simulation_stream), task.first_counts)
+    refit = fit_batch(counts, task.design, task.options)
     values = compute_statistics(task.statistics, counts, task.design, refit,
                                 task.statistics_stream)
-    return ChunkOutput(values, refit.theta, refit.rate)
+    return ChunkOutput(values, refit.theta, refit.rate, refit.noise)
 
 
 def extremeness(values: np.ndarray, center: np.ndarray, alternative: str) -> np.ndarray:
@@ -251,7 +303,7 @@ def withheld_reason(stat: Statistic, model: NeutralModel, design: Design) -> str
 
 
 def calibrate_statistics(plan: CalibrationPlan, null: np.ndarray) -> dict[str, StatisticResult]:
-    """StatisticResults for every statistic and for the calibrated Cauchy combination."""
+    """StatisticResults for every statistic and for their calibrated combination."""
     results: dict[str, StatisticResult] = {}
     replicate_pvalues = np.full_like(null, np.nan)
     observed_pvalues = np.full(len(plan.statistics), np.nan)
@@ -273,34 +325,34 @@ def calibrate_statistics(plan: CalibrationPlan, null: np.ndarray) -> dict[str, S
     return results
 
 
-def _cauchy_statistic(pvalues: np.ndarray) -> np.ndarray:
-    """-log10 of the Cauchy-combined p-value per row, skipping undefined (NaN) p-values.
+def combination_statistic(pvalues: np.ndarray) -> np.ndarray:
+    """-log10 of the harmonic mean p-value per row, skipping undefined (NaN) p-values.
 
-    The log scale keeps the heavy Cauchy tail from swamping the null mean and sd that the
-    effect sizes use; it is a monotone function of the Cauchy statistic.
+    The log scale keeps the heavy 1/p tail from swamping the null mean and sd that the
+    effect sizes use; it is a monotone function of the harmonic mean.
     """
     weights = np.isfinite(pvalues).astype(np.float64)
     safe = np.where(weights > 0, pvalues, 0.5)
-    _, combined = cauchy_combination(safe, weights=weights, axis=-1)
+    combined = harmonic_mean_pvalue(safe, weights=weights, axis=-1)
     return np.where(weights.sum(axis=-1) > 0, -np.log10(combined), np.nan)
 
 
 def combine(observed_pvalues: np.ndarray, replicate_pvalues: np.ndarray) -> StatisticResult:
-    """Cauchy combination of the statistics' p-values, calibrated on the replicates.
+    """Harmonic mean p-value of the statistics' p-values, calibrated on the replicates.
 
-    The statistic is -log10 of the Cauchy combination p-value (Liu & Xie 2020, JASA
-    115:393); its p-value compares it with the same statistic computed from every replicate's
+    The statistic is -log10 of the harmonic mean p-value (Wilson 2019, PNAS 116:1195); its
+    p-value compares it with the same statistic computed from every replicate's
     leave-one-out p-values, which keeps the test exact under the bootstrap whatever the
-    dependence between statistics. The analytic Cauchy p-value is given in the note.
+    dependence between statistics. Unlike the Cauchy combination, a statistic with p = 1
+    cannot cancel the evidence of the others (see
+    :mod:`driftscreen.statistics.combination`). The uncalibrated harmonic mean is given
+    in the note.
     """
-    observed = float(_cauchy_statistic(observed_pvalues[None])[0])
-    null = _cauchy_statistic(replicate_pvalues)
+    observed = float(combination_statistic(observed_pvalues[None])[0])
+    null = combination_statistic(replicate_pvalues)
     pvalue = bootstrap_pvalue(observed, null, "greater")
-    finite = np.isfinite(observed_pvalues)
-    analytic = (float(cauchy_combination(observed_pvalues[finite])[1])
-                if finite.any() else np.nan)
-    note = f"analytic Cauchy p-value {analytic:.3g}" if np.isfinite(analytic) else \
-        "no statistic defined for this dataset"
+    note = (f"harmonic mean of the p-values {10.0 ** -observed:.3g}" if np.isfinite(observed)
+            else "no statistic defined for this dataset")
     return StatisticResult(COMBINED, observed, pvalue, null[np.isfinite(null)], "greater", note)
 
 
@@ -319,6 +371,40 @@ def parameter_interval(name: str, raw: float, simulated: float, replicates: np.n
     q_low, q_high = np.quantile(np.log(values) - np.log(simulated), [0.025, 0.975])
     return ParameterEstimate(name, simulated, float(raw * np.exp(-q_high)),
                              float(raw * np.exp(-q_low)), unit)
+
+
+def precision_interval(raw: float, simulated: float, replicates: np.ndarray,
+                       options: NullOptions, design: Design) -> ParameterEstimate | None:
+    """Read precision C = 1/g - 1 with a 95% interval; None where it was not estimated.
+
+    A fixed precision is reported as it is. An estimated one gets the basic bootstrap
+    interval of g on its own scale (g = 0 is a value the estimator reaches, so not on the
+    log scale), turned into C. When no noise was detected (g = 0) the estimate is inf and
+    the lower bound comes from the 97.5% quantile of the replicates' g: reads at least
+    that precise are consistent with the data.
+    """
+    if options.fixed_noise is not None:
+        if options.fixed_noise == 0:
+            return None
+        value = 1.0 / options.fixed_noise - 1.0
+        return ParameterEstimate("precision", value, value, value, "fixed")
+    if not design.is_time_series:
+        return None
+    values = replicates[np.isfinite(replicates)]
+    if values.size < 2:
+        return ParameterEstimate("precision", precision_of(simulated), np.nan, np.nan)
+    q_low, q_high = np.quantile(values, [0.025, 0.975])
+    if simulated <= 0:
+        return ParameterEstimate("precision", np.inf, precision_of(q_high), np.inf)
+    low_g = max(raw - (q_high - simulated), 0.0)
+    high_g = max(raw - (q_low - simulated), 0.0)
+    return ParameterEstimate("precision", precision_of(simulated), precision_of(high_g),
+                             precision_of(low_g))
+
+
+def precision_of(noise: float) -> float:
+    """C = 1/g - 1; inf for g = 0."""
+    return np.inf if noise <= 0 else 1.0 / noise - 1.0
 
 
 def summarize_dataset(dataset: Dataset) -> DatasetSummary:
@@ -420,6 +506,11 @@ def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityRes
     if model.rate is not None and raw.rate is not None:
         rates = np.concatenate([out.rate for out in outputs if out.rate is not None])
         parameters["rate"] = parameter_interval("rate", raw.rate, model.rate, rates, "per day")
+    precision = precision_interval(raw.noise, model.noise,
+                                   np.concatenate([out.noise for out in outputs]),
+                                   plan.settings.null, plan.dataset.design)
+    if precision is not None:
+        parameters["precision"] = precision
     return NeutralityResult(
         dataset=summarize_dataset(plan.dataset), model=model,
         statistics=calibrate_statistics(plan, null), parameters=parameters,
@@ -429,7 +520,9 @@ def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityRes
 
 def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int = 200,
                     seed: int = 0, jobs: int = 1,
-                    statistics: tuple[Statistic, ...] | None = None) -> NeutralityResult:
+                    statistics: tuple[Statistic, ...] | None = None,
+                    noise: NoiseOption = "estimate",
+                    start: StartOption = "first-sample") -> NeutralityResult:
     """Test one dataset against the neutral model by parametric bootstrap.
 
     Parameters
@@ -446,6 +539,13 @@ def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int =
         Worker processes for the replicate chunks (results do not depend on it).
     statistics:
         Statistics to run (default: all that the design allows).
+    noise:
+        Technical noise of the reads: ``"estimate"`` (from the data; time series only),
+        ``"off"`` (multinomial reads) or a fixed Dirichlet-multinomial precision C.
+    start:
+        ``"first-sample"``: time-series replicates are conditioned on the observed first
+        sample (a community relaxing from a disturbance is still neutral);
+        ``"stationary"``: they start from the stationary law.
 
     Returns
     -------
@@ -453,7 +553,8 @@ def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int =
         Per statistic ``statistic``, ``pvalue``, ``null_distribution`` and effect sizes,
         the fitted null with bootstrap intervals, and ``summary()``.
     """
-    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
+    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed,
+                                   null=NullOptions(noise=noise, start=start))
     plan = plan_calibration(dataset, settings, statistics)
     outputs = run_tasks(plan.tasks, jobs)
     return assemble(plan, outputs)

@@ -4,8 +4,12 @@ The model (see DEVELOPERS.md, "The neutral null") is the Wright-Fisher diffusion
 immigration on the simplex: local relative abundances X(t) relax towards the
 metacommunity composition ``p`` with immigration parameter ``theta`` (Etienne's
 fundamental dispersal number I; theta = 2Nm for a haploid Wright-Fisher population),
-and every sample is a multinomial draw of its sequencing depth from X at its time.
-Its stationary law is Dirichlet(theta p). In calendar time, correlations decay as
+and every sample is a draw of its sequencing depth from X at its time: multinomial, or
+Dirichlet-multinomial with precision C when PCR and extraction add technical noise
+(Mosimann 1962, Biometrika 49:65): reads ~ Multinomial(n, Dirichlet(C X)), so that
+Var(N_i / n | X) = X_i (1 - X_i) (g + (1 - g) / n) with ``noise`` g = 1 / (1 + C); g = 0 is
+the multinomial. Technical noise is independent from sample to sample, drift is not,
+which is what separates the two in a time series. Its stationary law is Dirichlet(theta p). In calendar time, correlations decay as
 exp(-rate * lag): ``rate`` (lambda, per day) is the per-capita rate at which residents
 are replaced by immigrants, and the diffusion clock runs at ``kappa = 2 rate / theta``
 per day.
@@ -14,8 +18,62 @@ per day.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Literal
 
 import numpy as np
+
+NoiseOption = Literal["estimate", "off"] | float
+StartOption = Literal["first-sample", "stationary"]
+#: Allowed values of :attr:`NullOptions.start`.
+START_CHOICES: tuple[str, ...] = ("first-sample", "stationary")
+
+
+@dataclass(frozen=True)
+class NullOptions:
+    """How the neutral null is fitted and simulated.
+
+    Attributes
+    ----------
+    noise:
+        Technical noise of the reads: ``"estimate"`` (time series: from the nugget of the
+        sampling-corrected variogram, i.e. the part of the variance between successive
+        samples that drift cannot explain; snapshots cannot separate it from drift and
+        get multinomial reads), ``"off"`` (multinomial reads), or a fixed
+        Dirichlet-multinomial precision C > 0.
+    start:
+        ``"first-sample"``: replicates of a time series are conditioned on its first
+        sample (they start from the posterior of the community given its reads and
+        relax towards p), and p is estimated as the point every taxon relaxes to at the
+        shared rate; a community recovering from a disturbance is then still neutral.
+        ``"stationary"``: replicates start from the stationary law and p is the pooled
+        read fraction.
+    """
+
+    noise: NoiseOption = "estimate"
+    start: StartOption = "first-sample"
+
+    def __post_init__(self) -> None:
+        if isinstance(self.noise, str):
+            if self.noise not in ("estimate", "off"):
+                raise ValueError(f"noise must be 'estimate', 'off' or a precision > 0, "
+                                 f"got {self.noise!r}")
+        elif not (np.isfinite(self.noise) and self.noise > 0):
+            raise ValueError(f"a fixed noise precision must be positive and finite, "
+                             f"got {self.noise}")
+        if self.start not in START_CHOICES:
+            raise ValueError(f"start must be one of {START_CHOICES}, got {self.start!r}")
+
+    @property
+    def conditioned(self) -> bool:
+        """True when time-series replicates are conditioned on the first sample."""
+        return self.start == "first-sample"
+
+    @property
+    def fixed_noise(self) -> float | None:
+        """g = 1 / (1 + C) when the noise is fixed (0 when off); None when estimated."""
+        if self.noise == "estimate":
+            return None
+        return 0.0 if self.noise == "off" else 1.0 / (1.0 + float(self.noise))
 
 
 @dataclass(frozen=True)
@@ -30,6 +88,9 @@ class NeutralModel:
         Immigration parameter (> 0). Stationary Var X_i = p_i (1 - p_i) / (1 + theta).
     rate:
         Relaxation rate lambda per day (> 0); ``None`` for a snapshot design.
+    noise:
+        Technical noise g = 1 / (1 + C) of Dirichlet-multinomial reads with precision C,
+        in [0, 1); 0 (the default) is multinomial sequencing.
     flags:
         Plain-text notes from fitting (e.g. a clipped estimate, weak identifiability).
     """
@@ -37,6 +98,7 @@ class NeutralModel:
     p: np.ndarray
     theta: float
     rate: float | None = None
+    noise: float = 0.0
     flags: tuple[str, ...] = field(default=())
 
     def __post_init__(self) -> None:
@@ -53,6 +115,14 @@ class NeutralModel:
             if not (np.isfinite(self.rate) and self.rate > 0):
                 raise ValueError(f"rate must be positive and finite, got {self.rate}")
             object.__setattr__(self, "rate", float(self.rate))
+        if not (np.isfinite(self.noise) and 0.0 <= self.noise < 1.0):
+            raise ValueError(f"noise must lie in [0, 1), got {self.noise}")
+        object.__setattr__(self, "noise", float(self.noise))
+
+    @property
+    def precision(self) -> float:
+        """Dirichlet-multinomial precision C = 1/g - 1 of the reads; inf without noise."""
+        return np.inf if self.noise == 0 else 1.0 / self.noise - 1.0
 
     @property
     def n_taxa(self) -> int:
@@ -83,19 +153,33 @@ class NullFit:
     clipped:
         Shape ``(R,)`` booleans: the moment estimate of theta fell outside (0, inf)
         and was clipped to the allowed range.
+    noise:
+        Shape ``(R,)``: technical noise g = 1 / (1 + C) of the reads (0: multinomial).
     """
 
     p: np.ndarray
     theta: np.ndarray
     rate: np.ndarray | None
     clipped: np.ndarray
+    noise: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        if self.noise is None:
+            object.__setattr__(self, "noise", np.zeros_like(self.theta, dtype=np.float64))
 
     @property
     def n_replicates(self) -> int:
         return int(self.theta.size)
 
-    def model(self, index: int = 0) -> NeutralModel:
-        """The fit of replicate ``index`` as a :class:`NeutralModel`."""
-        flags = ("theta estimate clipped to its allowed range",) if self.clipped[index] else ()
-        rate = None if self.rate is None else float(self.rate[index])
-        return NeutralModel(self.p[index], float(self.theta[index]), rate, flags)
+
+def sampling_variance_factor(depths: np.ndarray, noise: np.ndarray | float) -> np.ndarray:
+    """s_t = g + (1 - g) / n_t: Var(N_it / n_t | X) = X_i (1 - X_i) s_t, shape ``(..., T)``.
+
+    The Dirichlet-multinomial variance n p (1 - p) (n + C) / (n (1 + C)) (Mosimann 1962)
+    divided by n^2, with g = 1 / (1 + C); g may be one value per replicate ``(R,)``, which
+    gives shape ``(R, T)``. 1 / s_t is the effective depth of sample t: the multinomial
+    depth with the same sampling variance.
+    """
+    depths = np.asarray(depths, dtype=np.float64)
+    g = np.asarray(noise, dtype=np.float64)[..., None]
+    return g + (1.0 - g) / depths

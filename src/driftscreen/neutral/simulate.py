@@ -9,7 +9,13 @@ exactly through lines of descent (Griffiths 1980; Jenkins & Spano 2017):
 
 with one ``A`` per replicate per interval, shared by all taxa, so the cost does not
 depend on any community size. Calendar intervals become diffusion time through
-``kappa = 2 rate / theta`` per day.
+``kappa = 2 rate / theta`` per day. With technical noise (``model.noise`` g > 0) every
+sample is Dirichlet-multinomial around the community, Multinomial(n, Dirichlet(C X)),
+C = 1/g - 1 (Mosimann 1962, Biometrika 49:65), drawn independently for every sample.
+
+:func:`simulate_conditioned` conditions a time series on its observed first sample:
+the community at the first time is drawn from its posterior given those reads and the
+later samples follow from it; the first sample itself is the observed one.
 
 Reproducibility: replicates are simulated in blocks of :func:`replicates_per_block`
 replicates (a fixed function of the number of taxa and samples). Block ``b`` draws from
@@ -136,6 +142,19 @@ def _latent_path(theta_p: np.ndarray, start: np.ndarray | None, n_rows: int,
         yield x
 
 
+def sequence(depth: int | np.ndarray, x: np.ndarray, precision: float,
+             rng: np.random.Generator) -> np.ndarray:
+    """Reads of compositions ``x`` ``(R, K)``: multinomial, or Dirichlet-multinomial.
+
+    ``precision`` C = inf gives Multinomial(depth, x); a finite C gives
+    Multinomial(depth, Dirichlet(C x)) (Mosimann 1962), whose variance is that of the
+    multinomial times (depth + C)/(1 + C).
+    """
+    if np.isfinite(precision):
+        x = dirichlet_rows(precision * x, rng)
+    return rng.multinomial(depth, x)
+
+
 def _simulate_block(model: NeutralModel, design: Design, sampler: LinesOfDescentSampler | None,
                     start: np.ndarray | None, rng: np.random.Generator,
                     out: np.ndarray) -> np.ndarray:
@@ -152,12 +171,13 @@ def _simulate_block(model: NeutralModel, design: Design, sampler: LinesOfDescent
     if sampler is None:
         alpha = np.broadcast_to(theta_p, (n_rows, model.n_taxa))
         for t, depth in enumerate(design.depths):
-            out[:, t] = rng.multinomial(depth, dirichlet_rows(alpha, rng))[:, original]
+            out[:, t] = sequence(depth, dirichlet_rows(alpha, rng), model.precision,
+                                 rng)[:, original]
         return out
     start = None if start is None else start[:, order]
     path = _latent_path(theta_p, start, n_rows, sampler, design.n_samples, rng)
     for t, x in enumerate(path):
-        out[:, t] = rng.multinomial(design.depths[t], x)[:, original]
+        out[:, t] = sequence(design.depths[t], x, model.precision, rng)[:, original]
     return out
 
 
@@ -294,6 +314,51 @@ def simulate(model: NeutralModel, design: Design, n_replicates: int,
     """
     blocks = _Blocks(model, design, n_replicates, rng, start)
     return next(_chunks(blocks, blocks.n_replicates))
+
+
+def first_sample_posterior(model: NeutralModel, first_counts: np.ndarray, n_replicates: int,
+                           rng: np.random.Generator) -> np.ndarray:
+    """Draws of the community at the first sample given its reads, ``(R, K)``.
+
+    Under the stationary law Dirichlet(theta p) and multinomial reads N_0 the posterior
+    is Dirichlet(theta p + N_0) (Dirichlet-multinomial conjugacy). With technical noise
+    the reads carry the information of a multinomial sample of the effective depth
+    n_eff = 1 / (g + (1 - g)/n), so N_0 is scaled by n_eff / n (a moment-matched
+    approximation of the non-conjugate posterior).
+    """
+    counts = np.asarray(first_counts, dtype=np.float64)
+    depth = counts.sum()
+    effective = 1.0 / (model.noise + (1.0 - model.noise) / depth)
+    alpha = model.theta * model.p + counts * (effective / depth)
+    return dirichlet_rows(np.broadcast_to(alpha, (n_replicates, alpha.size)), rng)
+
+
+def simulate_conditioned(model: NeutralModel, design: Design, n_replicates: int,
+                         first_counts: np.ndarray, rng: RandomSource = None) -> np.ndarray:
+    """Neutral replicates of a time series conditioned on its observed first sample.
+
+    The community at the first time is drawn from :func:`first_sample_posterior`, the
+    process runs forward exactly as in :func:`simulate`, and the first sample of every
+    replicate is ``first_counts`` itself. A neutral community that is still relaxing from
+    a disturbance at the first sample (after an antibiotic course, a diet change, a
+    colonisation) is thereby reproduced, and every taxon relaxes towards ``p`` at the one
+    shared rate: E[X(t)] = p + (x_0 - p) exp(-rate (t - t_0)).
+
+    Returns
+    -------
+    np.ndarray
+        Shape ``(R, T, K)``, int64; ``counts[:, 0] == first_counts``.
+    """
+    if not design.is_time_series:
+        raise ValueError("conditioning on the first sample needs a time series")
+    first_counts = np.asarray(first_counts)
+    if first_counts.shape != (model.n_taxa,) or first_counts.sum() != design.depths[0]:
+        raise ValueError("first_counts must have shape (K,) and sum to the first depth")
+    generator = np.random.default_rng(rng)
+    start = first_sample_posterior(model, first_counts, n_replicates, generator)
+    counts = simulate(model, design, n_replicates, generator, start=start)
+    counts[:, 0] = first_counts
+    return counts
 
 
 def simulate_abundances(model: NeutralModel, times: np.ndarray, n_replicates: int,

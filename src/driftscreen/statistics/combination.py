@@ -1,6 +1,19 @@
-"""Cauchy combination of p-values.
+"""Combinations of p-values: the harmonic mean p-value (used by ``combined``) and Cauchy.
 
-Liu Y., Xie J. (2020) "Cauchy combination test: a powerful test with analytic p-value
+Harmonic mean p-value (Wilson D.J. (2019) "The harmonic mean p-value for combining
+dependent tests", PNAS 116(4):1195-1200): with weights w_j summing to 1,
+
+    HMP = 1 / sum_j (w_j / p_j).
+
+It is dominated by the smallest p-values, as the Cauchy combination is (both have the
+same 1/p tail), but a p-value of 1 adds only w_j to the denominator: one statistic that
+sees nothing cannot cancel strong evidence in the others. (In the Cauchy transform a
+p-value of 1 is -inf, and a bootstrap p-value of exactly 1 -- all replicates at least as
+extreme -- maps to about -3e15 and annuls every other term.) driftscreen calibrates the
+HMP against the replicates, so neither its level nor Wilson's asymptotic Landau
+correction is needed.
+
+Cauchy combination: Liu Y., Xie J. (2020) "Cauchy combination test: a powerful test with analytic p-value
 calculation under arbitrary dependency structures", J. Am. Stat. Assoc. 115(529):393-402.
 Each p-value is mapped to a standard Cauchy variate tan((1/2 - p) pi); the weighted sum
 
@@ -80,3 +93,36 @@ def cauchy_combination(pvalues: np.ndarray, weights: np.ndarray | None = None,
     with np.errstate(divide="ignore", invalid="ignore"):
         pvalue = cauchy_sf(statistic / total_weight)
     return statistic, pvalue
+
+
+def harmonic_mean_pvalue(pvalues: np.ndarray, weights: np.ndarray | None = None,
+                         axis: int = -1) -> np.ndarray:
+    """Weighted harmonic mean p-value along ``axis`` (Wilson 2019, PNAS 116:1195).
+
+    Parameters
+    ----------
+    pvalues:
+        p-values in [0, 1]; any shape. NaN entries make the result NaN (give them
+        weight 0 and any placeholder to skip them).
+    weights:
+        Non-negative weights broadcastable to ``pvalues``; default equal. They are
+        normalised to sum to 1 along ``axis``.
+    axis:
+        Axis along which to combine.
+
+    Returns
+    -------
+    np.ndarray
+        sum_j w_j / sum_j (w_j / p_j) with ``axis`` removed; 0 when a weighted p-value is
+        0, NaN when every weight is 0.
+    """
+    pvalues = np.asarray(pvalues, dtype=np.float64)
+    if np.any(pvalues < 0) or np.any(pvalues > 1):
+        raise ValueError("p-values must lie in [0, 1]")
+    weights = (np.ones(pvalues.shape) if weights is None
+               else np.broadcast_to(np.asarray(weights, dtype=np.float64), pvalues.shape))
+    if np.any(weights < 0):
+        raise ValueError("weights must be non-negative")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inverse = np.where(weights > 0, weights / pvalues, 0.0).sum(axis=axis)
+        return weights.sum(axis=axis) / inverse

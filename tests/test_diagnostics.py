@@ -122,7 +122,7 @@ def test_observed_diagnostics_use_the_observed_fit_and_each_statistic_stream(ser
     tables = observed_diagnostics(plan)
     stream = seeds.substream(seeds.dataset_stream(3, series.name), seeds.STATISTICS)
     for j, stat in enumerate(plan.statistics):
-        direct = stat.diagnose(series.counts, series.design, plan.fit.model(0),
+        direct = stat.diagnose(series.counts, series.design, plan.raw_model,
                                seeds.generator(seeds.substream(stream, j)))
         expected = storable_table(with_neutral_taylor_line(direct), series.taxa)
         pd.testing.assert_frame_equal(tables[stat.name], expected)

@@ -7,6 +7,7 @@ import pandas as pd
 import pytest
 from scipy import optimize, special, stats
 
+from driftscreen.neutral.fit import fitted_model
 from driftscreen.neutral.model import NullFit
 from driftscreen.statistics.dispersion_heterogeneity import (
     DispersionHeterogeneity,
@@ -326,7 +327,7 @@ def test_diagnose_lists_taxon_thetas_and_contributions(design):
     thetas = np.where(np.arange(P.size) % 2 == 0, 10.0, 160.0)
     counts = heterogeneous_dispersion(P, thetas, design, 1, seed=6)
     _, fit = fitted(counts, design)
-    table = STAT.diagnose(counts[0], design, fit.model(0), None)
+    table = STAT.diagnose(counts[0], design, fitted_model(fit, design), None)
     assert isinstance(table, pd.DataFrame)
     assert list(table.columns) == ["taxon", "p", "theta_taxon", "theta_common",
                                    "at_grid_edge", "lr_contribution"]

@@ -6,6 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from driftscreen.neutral.fit import fitted_model
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import simulate
 from driftscreen.statistics.fluctuation_scaling import (
@@ -200,7 +201,7 @@ def test_diagnose_reports_the_fitted_line():
     p = composition(30, seed=2)
     design = daily_design(60, 4000)
     counts, fit = neutral_batch(p, 50.0, 0.5, design, 1, seed=1)
-    model = fit.model(0)
+    model = fitted_model(fit, design)
     table = STAT.diagnose(counts[0], design, model, None)
     assert isinstance(table, pd.DataFrame)
     assert list(table.columns) == ["taxon", "mean", "variance", "raw_variance",

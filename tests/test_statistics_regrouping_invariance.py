@@ -7,6 +7,7 @@ import pandas as pd
 import pytest
 from scipy import integrate, stats
 
+from driftscreen.neutral.fit import fitted_model
 from driftscreen.neutral.model import NeutralModel, NullFit
 from driftscreen.neutral.simulate import simulate
 from driftscreen.statistics.regrouping_invariance import (
@@ -173,7 +174,7 @@ def test_edge_cases_short_series_absent_taxa_and_undefined_designs():
 def test_diagnose_lists_groupings():
     design = daily_design(60, 4000)
     counts, fit = neutral_batch(P, 40.0, 0.3, design, 1, seed=2)
-    table = RegroupingInvariance(n_groupings=25).diagnose(counts[0], design, fit.model(0),
+    table = RegroupingInvariance(n_groupings=25).diagnose(counts[0], design, fitted_model(fit, design),
                                                          np.random.default_rng(3))
     assert isinstance(table, pd.DataFrame)
     assert list(table.columns) == ["grouping", "size", "members", "mean_abundance",

@@ -7,6 +7,7 @@ import pandas as pd
 import pytest
 from scipy import special, stats
 
+from driftscreen.neutral.fit import fitted_model
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.statistics.stationary_divergence import (
     StationaryDivergence,
@@ -226,7 +227,7 @@ def test_diagnose_reports_sorted_taxa_whose_contributions_sum_to_the_statistic()
     design = snapshot_design(80, 4000)
     counts = on_off(P, 30.0, 0.7, design, 1, seed=6)[0]
     _, fit = fitted(counts[None], design)
-    model = fit.model(0)
+    model = fitted_model(fit, design)
     table = STAT.diagnose(counts, design, model, np.random.default_rng(0))
     assert isinstance(table, pd.DataFrame)
     assert list(table.columns) == ["taxon", "members", "p", "observed_zero_fraction",

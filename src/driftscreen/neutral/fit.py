@@ -54,9 +54,9 @@ SUB_BATCH_BYTES = 96 * 2**20
 #: Grid of the technical noise g = 1/(1 + C) searched when it is estimated: 0 and
 #: log-spaced values from C = 10^6 down to C = 1.
 NOISE_GRID = np.concatenate([[0.0], 1.0 / (1.0 + np.geomspace(1e6, 1.0, 49))])
-#: Technical noise is identified only when successive samples are correlated at least
-#: this much under the fit (mean of exp(-rate dt)): otherwise the increments at lags one
-#: and two are both at the plateau, and drift and noise cannot be told apart.
+#: Technical noise is estimated only when successive samples are correlated at least this
+#: much under the multinomial fit (mean of exp(-rate dt)): otherwise the increments at
+#: lags one and two are both at the plateau, and drift and noise cannot be told apart.
 NOISE_MIN_CORRELATION = 0.2
 #: The relaxation estimate of p divides by 1 - e, e the read-weighted mean of
 #: exp(-rate (t - t_0)); e is capped here (the noise of p grows as 1 / (1 - e)).
@@ -323,16 +323,13 @@ def _series_fit(counts: np.ndarray, p: np.ndarray, design: Design, series: _Seri
         upper = np.exp(series.log_grid[-1])
         return (_v_from_ratio(ratio_q, series.r_w[-1], series, noise), np.full(noise.size, upper),
                 noise)
-    if fixed_noise is None and series.noise_identifiable:
-        noise = _noise_estimate(ratio_q, ratio_1, ratio_2, series)
     rate = np.exp(_crossing(_increment_gap(ratio_q, ratio_1, series, noise), series.log_grid))
-    if fixed_noise is None:
-        lost = (noise > 0) & (successive_correlation(rate, series.adjacent_gaps)
-                              < NOISE_MIN_CORRELATION)
-        if lost.any():
-            noise[lost] = 0.0
-            rate[lost] = np.exp(_crossing(_increment_gap(ratio_q[lost], ratio_1[lost], series,
-                                                         noise[lost]), series.log_grid))
+    if fixed_noise is None and series.noise_identifiable:
+        rows = successive_correlation(rate, series.adjacent_gaps) >= NOISE_MIN_CORRELATION
+        if rows.any():
+            noise[rows] = _noise_estimate(ratio_q[rows], ratio_1[rows], ratio_2[rows], series)
+            rate[rows] = np.exp(_crossing(_increment_gap(ratio_q[rows], ratio_1[rows], series,
+                                                         noise[rows]), series.log_grid))
     return _v_from_ratio(ratio_q, correlation_weight(rate, design), series, noise), rate, noise
 
 
@@ -386,17 +383,20 @@ def _noise_estimate(ratio_q: np.ndarray, ratio_1: np.ndarray, ratio_2: np.ndarra
     falls with g, until v reaches its lower bound (the noise alone would explain the
     spread) and the prediction rises again. g-hat is where the prediction first meets the
     observed lag-2 increment (0 when even g = 0 predicts too little), or where it comes
-    closest when it never meets it.
+    closest when it never meets it. Values of g that push the rate to the lower end of its
+    range (a drift so slow it is a straight trend, with the noise explaining everything
+    else) are not solutions.
     """
     gap = np.empty((ratio_q.size, NOISE_GRID.size))
     for j, g in enumerate(NOISE_GRID):
         noise = np.full(ratio_q.size, g)
         log_rate = _crossing(_increment_gap(ratio_q, ratio_1, series, noise), series.log_grid)
+        interior = log_rate > series.log_grid[0]
         r_w = np.interp(log_rate, series.log_grid, series.r_w)
         shape = np.interp(log_rate, series.log_grid, series.second_shape)
         v = np.clip(_v_from_ratio(ratio_q, r_w, series, noise), V_MIN, V_MAX)
-        gap[:, j] = ratio_2 - _predicted_increments(v, shape, series.second[0].size, r_w,
-                                                    series, noise)
+        gap[:, j] = np.where(interior, ratio_2 - _predicted_increments(
+            v, shape, series.second[0].size, r_w, series, noise), np.nan)
     gap = np.nan_to_num(gap, nan=-np.inf)
     closest = NOISE_GRID[np.argmax(gap, axis=1)]
     return np.where((gap >= 0).any(axis=1), _crossing(gap, NOISE_GRID), closest)

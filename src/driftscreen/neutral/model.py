@@ -107,7 +107,8 @@ class NeutralModel:
             raise ValueError("p must be a non-empty 1-D array of non-negative numbers")
         if p.sum() <= 0:
             raise ValueError("p must have a positive sum")
-        object.__setattr__(self, "p", p / p.sum())
+        total = p.sum()
+        object.__setattr__(self, "p", p if abs(total - 1.0) <= 1e-12 else p / total)
         if not (np.isfinite(self.theta) and self.theta > 0):
             raise ValueError(f"theta must be positive and finite, got {self.theta}")
         object.__setattr__(self, "theta", float(self.theta))
@@ -183,3 +184,15 @@ def sampling_variance_factor(depths: np.ndarray, noise: np.ndarray | float) -> n
     depths = np.asarray(depths, dtype=np.float64)
     g = np.asarray(noise, dtype=np.float64)[..., None]
     return g + (1.0 - g) / depths
+
+
+def read_theta(theta: np.ndarray | float, noise: np.ndarray | float) -> np.ndarray:
+    """theta_0 with 1/(1 + theta_0) = v + (1 - v) g: the reads' composition before sampling.
+
+    Dirichlet-multinomial reads are Multinomial(n, Dirichlet(C X)); with X ~ Dirichlet
+    (theta p), the composition Dirichlet(C X) has the mean p and the variance
+    p (1 - p)(v + (1 - v) g) of a Dirichlet(theta_0 p) (v = 1/(1 + theta), g = 1/(1 + C)),
+    which stands in for it in the statistics' stationary laws. theta_0 = theta when g = 0.
+    """
+    v = 1.0 / (1.0 + np.asarray(theta, dtype=np.float64))
+    return 1.0 / (v + (1.0 - v) * np.asarray(noise, dtype=np.float64)) - 1.0

@@ -54,7 +54,7 @@ import numpy as np
 import pandas as pd
 
 from driftscreen.dataset import Design
-from driftscreen.neutral.model import NeutralModel, NullFit
+from driftscreen.neutral.model import NeutralModel, NullFit, sampling_variance_factor
 from driftscreen.statistics.base import Alternative
 
 #: Fewest taxa for a slope.
@@ -91,7 +91,7 @@ class FluctuationScaling:
     def compute(self, counts: np.ndarray, design: Design, fit: NullFit,
                 rng: np.random.Generator) -> np.ndarray:
         """Taylor exponent per table, shape ``(R,)``; NaN with fewer than three usable taxa."""
-        moments = taxon_moments(counts, design.depths)
+        moments = taxon_moments(counts, design.depths, fit.noise)
         weights = neutral_weights(fit.p, fit.theta, design.depths)
         _, slope = taylor_fit(moments.mean, moments.corrected, self.usable(moments), weights)
         return slope
@@ -112,7 +112,7 @@ class FluctuationScaling:
         column index in ``counts``.
         """
         counts = np.asarray(counts)
-        moments = taxon_moments(counts[None], design.depths)
+        moments = taxon_moments(counts[None], design.depths, np.array([model.noise]))
         usable = self.usable(moments)
         weights = neutral_weights(model.p[None], np.array([model.theta]), design.depths)
         intercept, slope = taylor_fit(moments.mean, moments.corrected, usable, weights)
@@ -134,10 +134,15 @@ class FluctuationScaling:
         })
 
 
-def taxon_moments(counts: np.ndarray, depths: np.ndarray) -> TaxonMoments:
+def taxon_moments(counts: np.ndarray, depths: np.ndarray,
+                  noise: np.ndarray | None = None) -> TaxonMoments:
     """Moments over samples of Y_it = N_it / n_t for a batch ``(R, T, K)``.
 
-    The sampling term uses n_t - 1, floored at 1 (a one-read sample has Y (1 - Y) = 0).
+    The sampling term Y (1 - Y)/(n_t - 1) is unbiased for the multinomial variance
+    X (1 - X)/n_t; with technical noise g (one per table, ``(R,)``) it is scaled by
+    n_t s_t / (1 - g), s_t = g + (1 - g)/n_t, to the Dirichlet-multinomial variance
+    X (1 - X) s_t (E[Y (1 - Y) | X] = X (1 - X)(1 - s_t)). n_t - 1 is floored at 1 (a
+    one-read sample has Y (1 - Y) = 0).
     """
     counts = np.asarray(counts)
     n_samples = counts.shape[1]
@@ -147,9 +152,11 @@ def taxon_moments(counts: np.ndarray, depths: np.ndarray) -> TaxonMoments:
     second = np.einsum("rtk,rtk->rk", relative, relative) / n_samples
     ddof = max(n_samples - 1, 1)
     variance = np.maximum(second - mean * mean, 0.0) * (n_samples / ddof)
-    inverse = 1.0 / np.maximum(depths - 1.0, 1.0)
-    sampling = (np.einsum("rtk,t->rk", relative, inverse)
-                - np.einsum("rtk,rtk,t->rk", relative, relative, inverse)) / n_samples
+    noise = np.zeros(counts.shape[0]) if noise is None else noise
+    scale = depths * sampling_variance_factor(depths, noise) / (1.0 - noise)[:, None]   # (R, T)
+    inverse = scale / np.maximum(depths - 1.0, 1.0)
+    sampling = (np.einsum("rtk,rt->rk", relative, inverse)
+                - np.einsum("rtk,rtk,rt->rk", relative, relative, inverse)) / n_samples
     mean_count = counts.sum(axis=1) / n_samples
     return TaxonMoments(mean, variance, variance - sampling, mean_count)
 

@@ -13,7 +13,9 @@ every group, the expected variance
 
     e_t = f_G (1 - exp(-rate dt_t)) / (2 (theta + 1)) + 1/(4 n_t + 2) + 1/(4 n_{t+1} + 2),
 
-the sampling parts plus the increment of an Ornstein-Uhlenbeck process with rate and
+the sampling parts (with technical noise g, at the effective depths
+1/(g + (1 - g)/n_t) of Dirichlet-multinomial reads) plus the increment of an
+Ornstein-Uhlenbeck process with rate and
 stationary variance f_G / (4 (theta + 1)) (design note section 6). f_G = 1 where
 theta P_G (1 - P_G) >> 1; for rare groups (and their complements) the stationary angular
 variance is smaller, and f_G = 4 (theta + 1) Var[arcsin sqrt(X_G)] comes from the
@@ -57,7 +59,7 @@ import pandas as pd
 from scipy import special
 
 from driftscreen.dataset import Design
-from driftscreen.neutral.model import NeutralModel, NullFit
+from driftscreen.neutral.model import NeutralModel, NullFit, sampling_variance_factor
 from driftscreen.statistics.base import Alternative
 from driftscreen.statistics.stationary_divergence import single_fit
 
@@ -120,7 +122,8 @@ class RegroupingInvariance:
                        @ members.astype(np.float64)).reshape(n_rep, n_samples, -1)
         group_p = fit.p @ members
         volatility = increment_volatility(group_reads, depths, design.intervals, fit.theta,
-                                          fit.rate, angular_variance_factor(fit.theta, group_p))
+                                          fit.rate, angular_variance_factor(fit.theta, group_p),
+                                          fit.noise)
         harmonic_depth = 1.0 / np.mean(1.0 / depths)
         weight = np.minimum(harmonic_depth * group_p * (1.0 - group_p) / self.min_group_reads, 1.0)
         weight = np.where((group_reads.sum(axis=1) > 0) & (volatility > 0), weight, 0.0)
@@ -182,25 +185,30 @@ def angular_variance_factor(theta: np.ndarray, group_p: np.ndarray) -> np.ndarra
 
 
 def expected_increment_variance(depths: np.ndarray, intervals: np.ndarray, theta: np.ndarray,
-                                rate: np.ndarray, factor: np.ndarray) -> np.ndarray:
+                                rate: np.ndarray, factor: np.ndarray,
+                                noise: np.ndarray | None = None) -> np.ndarray:
     """Neutral Var(dy_t) per group, ``(R, T-1, G)``: scaled drift part plus sampling parts.
 
     The drift part is factor_G (1 - exp(-rate dt)) / (2 (theta + 1)): the increment of an
     Ornstein-Uhlenbeck process with the group's stationary angular variance
-    factor_G / (4 (theta + 1)) (:func:`angular_variance_factor`).
+    factor_G / (4 (theta + 1)) (:func:`angular_variance_factor`). The sampling part of a
+    sample is Anscombe's 1/(4 n + 2) at its effective depth n = 1/(g + (1 - g)/n_t)
+    (:func:`driftscreen.neutral.model.sampling_variance_factor`; n_t without noise).
     """
     drift = -np.expm1(-rate[:, None] * intervals) / (2.0 * (theta[:, None] + 1.0))
-    sampling = 1.0 / (4.0 * depths + 2.0)
-    return drift[..., None] * factor[:, None, :] + (sampling[:-1] + sampling[1:])[:, None]
+    noise = np.zeros_like(theta) if noise is None else noise
+    sampling = 1.0 / (4.0 / sampling_variance_factor(depths, noise) + 2.0)    # (R, T)
+    return drift[..., None] * factor[:, None, :] + (sampling[:, :-1] + sampling[:, 1:])[..., None]
 
 
 def increment_volatility(group_reads: np.ndarray, depths: np.ndarray, intervals: np.ndarray,
-                         theta: np.ndarray, rate: np.ndarray, factor: np.ndarray) -> np.ndarray:
+                         theta: np.ndarray, rate: np.ndarray, factor: np.ndarray,
+                         noise: np.ndarray | None = None) -> np.ndarray:
     """v_G = mean_t dy_t^2 / e_t for group reads ``(R, T, G)``, shape ``(R, G)``; NaN if T < 2."""
     if group_reads.shape[1] < 2:
         return np.full((group_reads.shape[0], group_reads.shape[2]), np.nan)
     y = angular_transform(group_reads, depths)
     increments = np.diff(y, axis=1)
     increments *= increments
-    increments /= expected_increment_variance(depths, intervals, theta, rate, factor)
+    increments /= expected_increment_variance(depths, intervals, theta, rate, factor, noise)
     return increments.mean(axis=1)

@@ -69,7 +69,7 @@ import pandas as pd
 from scipy import special
 
 from driftscreen.dataset import Design
-from driftscreen.neutral.model import NeutralModel, NullFit
+from driftscreen.neutral.model import NeutralModel, NullFit, read_theta
 from driftscreen.statistics.base import Alternative
 from driftscreen.statistics.pooling import PooledTaxa, pool_rare_taxa
 
@@ -125,18 +125,23 @@ class StationaryDivergence:
         return self.by_taxon(counts, design, fit).contribution.sum(axis=1)
 
     def by_taxon(self, counts: np.ndarray, design: Design, fit: NullFit) -> TaxonDivergence:
-        """Observed and expected class frequencies and KL contribution of every taxon."""
+        """Observed and expected class frequencies and KL contribution of every taxon.
+
+        With technical noise the stationary law is that of the reads' composition,
+        Dirichlet(theta_0 p) (:func:`driftscreen.neutral.model.read_theta`).
+        """
         depths = design.depths.astype(np.float64)
+        theta = read_theta(fit.theta, fit.noise)
         pooled = pool_rare_taxa(counts, precision_weighted_composition(
-            np.asarray(counts), depths, fit.theta), fit.theta, self.min_shape)
+            np.asarray(counts), depths, theta), theta, self.min_shape)
         counts, p = pooled.counts, pooled.p
         present = (p > 0) & (p < 1)
-        shape_a, shape_b = beta_shapes(p, fit.theta)
+        shape_a, shape_b = beta_shapes(p, theta)
         n_classes = int(np.clip(design.n_samples // self.samples_per_class, 1, self.max_classes))
         edges = class_edges(shape_a, shape_b, n_classes)
         observed = observed_class_frequencies(counts, depths, edges)
         bin_depths, bin_weights = depth_bins(design.depths, self.max_depth_bins)
-        expected = expected_class_probabilities(shape_a, shape_b, fit.theta, edges,
+        expected = expected_class_probabilities(shape_a, shape_b, theta, edges,
                                                 bin_depths, bin_weights)
         divergence = kl_divergence(observed, expected, self.expected_floor)
         corrected = divergence - miller_madow_bias(observed, design.n_samples)
@@ -162,7 +167,8 @@ class StationaryDivergence:
         parts = self.by_taxon(np.asarray(counts)[None], design, single_fit(model))
         pooled = parts.pooled
         p = pooled.p[0]
-        ratio = variance_ratio(pooled.counts[0], design.depths, p, model.theta)
+        ratio = variance_ratio(pooled.counts[0], design.depths, p,
+                               float(read_theta(model.theta, model.noise)))
         table = pd.DataFrame({
             "taxon": pooled.order[0],
             "members": pooled.members[0],
@@ -183,7 +189,7 @@ def single_fit(model: NeutralModel) -> NullFit:
     """A batch-of-one NullFit holding ``model``."""
     rate = None if model.rate is None else np.array([model.rate])
     return NullFit(p=model.p[None], theta=np.array([model.theta]), rate=rate,
-                   clipped=np.array([False]))
+                   clipped=np.array([False]), noise=np.array([model.noise]))
 
 
 def precision_weighted_composition(counts: np.ndarray, depths: np.ndarray,

@@ -205,8 +205,9 @@ def test_theta_rate_and_noise_solve_the_moment_equations(precision: float) -> No
     s_t = g + (1 - g) / depths
     s1, s2 = np.sum(w * s_t), np.sum(w**2 * s_t)
     denominator = 1 - v * r_w - (1 - v) * s2
+    # v is interpolated between the grid rates: the spread equation holds to 1e-3
     assert spread / hetero == pytest.approx((v * (1 - r_w) + (1 - v) * (s1 - s2)) / denominator,
-                                            rel=1e-9)
+                                            rel=1e-3)
     for lag in (1, 2):
         increments = np.sum((y[lag:] - y[:-lag]) ** 2 - binomial[lag:] - binomial[:-lag])
         shape = np.sum(-np.expm1(-model.rate * (design.times[lag:] - design.times[:-lag])))
@@ -354,12 +355,13 @@ def test_constant_composition_is_clipped_and_flagged(times: np.ndarray | None) -
 
 
 def test_trend_hits_the_lower_rate_bound_and_is_flagged() -> None:
-    """A steady replacement of one taxon by another: the variogram never levels off."""
+    """A steady replacement of one taxon by another: the variogram never levels off (for the
+    stationary null; conditioned on the first sample it reads as a slow relaxation)."""
     times = np.arange(30.0)
     share = np.linspace(0.05, 0.95, 30)
     counts = np.round(np.stack([share, 1 - share], axis=1) * 10_000).astype(np.int64)
     design = Design(counts.sum(axis=1), times)
-    result = fit(counts, design)
+    result = fit(counts, design, MULTINOMIAL)
     assert result.rate == pytest.approx(rate_bounds(design)[0])
     assert any("lower bound" in flag for flag in result.flags)
     assert any("weakly identified" in flag for flag in result.flags)
@@ -390,3 +392,42 @@ def test_one_sample_is_an_input_error() -> None:
 def test_wrong_shape_is_a_programming_error() -> None:
     with pytest.raises(ValueError):
         fit_batch(np.ones((3, 4)), Design(np.full(3, 4)))
+
+
+@pytest.mark.parametrize(("theta", "rate", "precision"), [(100.0, 0.2, 300.0),
+                                                          (30.0, 0.5, 1000.0),
+                                                          (100.0, 0.2, np.inf)])
+def test_technical_noise_is_recovered_from_the_nugget(theta, rate, precision):
+    """The median of g-hat = 1/(1 + C-hat) is within 35% of the truth (0 stays near 0), and
+    theta and the rate keep their accuracy, on daily series with Dirichlet-multinomial reads
+    (Mosimann 1962). Measured medians: g 0.0033 for 0.0033, 0.0013 for 0.0010 (where the
+    noise is a thirtieth of the drift variance)."""
+    rng = np.random.default_rng(int(theta + 10 * rate))
+    design = Design(np.full(100, 5_000), np.arange(100.0))
+    g = 0.0 if np.isinf(precision) else 1 / (1 + precision)
+    model = NeutralModel(lognormal_composition(40, rng), theta, rate, g)
+    result = fit_batch(simulate(model, design, 200, rng), design)
+    if g == 0:
+        assert np.median(result.noise) < 1e-4
+    else:
+        assert abs(np.median(result.noise) / g - 1) < 0.35
+    assert abs(np.median(result.theta) / theta - 1) < 0.1
+    assert abs(np.median(result.rate) / rate - 1) < 0.15
+
+
+def test_relaxation_composition_recovers_p_after_a_disturbance():
+    """A neutral community whose three most abundant taxa were cut to a tenth at the first
+    sample relaxes towards p as p + (x_0 - p) exp(-rate t) (design note, section 2): the
+    relaxation estimate of p is unbiased for those taxa, the time mean is far below."""
+    rng = np.random.default_rng(21)
+    p = lognormal_composition(30, rng)
+    start = p.copy()
+    top = np.argsort(-p)[:3]
+    start[top] /= 10
+    design = Design(np.full(30, 10_000), np.arange(30.0))
+    model = NeutralModel(p, 200.0, 0.1)
+    counts = simulate(model, design, 300, rng, start=start / start.sum())
+    relaxed = fit_batch(counts, design).p[:, top].mean(axis=0)
+    pooled = pooled_fractions(counts, design)[:, top].mean(axis=0)
+    np.testing.assert_allclose(relaxed / p[top], 1.0, atol=0.08)
+    assert np.all(pooled / p[top] < 0.85)

@@ -23,8 +23,10 @@ from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import (
     iter_simulate,
     replicates_per_block,
+    sequence,
     simulate,
     simulate_abundances,
+    simulate_conditioned,
     transition,
 )
 
@@ -335,3 +337,79 @@ def test_invalid_requests_are_rejected():
         simulate(model, series, 0, 1)
     with pytest.raises(ValueError):
         list(iter_simulate(model, series, 3, 1, chunk_size=0))
+
+
+def test_noisy_reads_have_the_dirichlet_multinomial_moments():
+    # Source: Mosimann (1962), Biometrika 49:65, Dirichlet-multinomial moments
+    # Var N_i = n p_i (1 - p_i)(n + C)/(1 + C), Cov N_i N_j = -n p_i p_j (n + C)/(1 + C);
+    # the values are taken from scipy.stats.dirichlet_multinomial with alpha = C x.
+    x = np.array([0.5, 0.3, 0.15, 0.05])
+    precision, depth = 300.0, 2000
+    counts = sequence(depth, np.broadcast_to(x, (60_000, 4)), precision,
+                      np.random.default_rng(17))
+    reference = stats.dirichlet_multinomial(precision * x, depth)
+    for i in range(4):
+        assert abs(z_mean(counts[:, i], reference.mean()[i])) < Z_BOUND
+        assert abs(z_variance(counts[:, i], reference.var()[i])) < Z_BOUND
+    covariance = np.cov(counts[:, 0], counts[:, 1])[0, 1]
+    assert covariance == pytest.approx(reference.cov()[0, 1], rel=0.05)
+    assert np.array_equal(counts.sum(axis=1), np.full(60_000, depth))
+
+
+def test_technical_noise_adds_the_same_nugget_to_every_pair():
+    # Source: for two independent reads of one community x, Var(Y_1 - Y_2) = Var Y_1 + Var Y_2
+    # (independence; textbook), with Var Y = x (1 - x)(g + (1 - g)/n) (Mosimann 1962,
+    # g = 1/(1 + C)); after the multinomial correction Y (1 - Y)/(n - 1), unbiased for
+    # x (1 - x)(1 - g)/n, the expected squared difference is 2 g x (1 - x) whatever the depths.
+    x = np.array([0.6, 0.25, 0.1, 0.05])
+    precision = 200.0
+    g = 1.0 / (1.0 + precision)
+    rng = np.random.default_rng(4)
+    rows = np.broadcast_to(x, (100_000, 4))
+    first, second = (sequence(n, rows, precision, rng) / n for n in (500, 5000))
+    corrected = ((first - second) ** 2 - first * (1 - first) / 499
+                 - second * (1 - second) / 4999).sum(axis=1)
+    assert abs(z_mean(corrected, 2 * g * np.sum(x * (1 - x)))) < Z_BOUND
+
+
+def test_mean_relaxes_from_the_start_at_the_shared_rate():
+    # Source: the first moment of the Wright-Fisher diffusion with immigration,
+    # E[X_i(t) | x_0] = p_i + (x_0i - p_i) exp(-rate t) (generator moment equation; Ewens
+    # 2004, Mathematical Population Genetics I, ch. 5; design note section 2).
+    p = np.array([0.4, 0.3, 0.2, 0.1])
+    start = np.array([0.04, 0.03, 0.53, 0.40])          # the two most abundant cut to a tenth
+    model = NeutralModel(p, 50.0, 0.3)
+    times = np.array([0.0, 1.0, 3.0, 8.0])
+    paths = simulate_abundances(model, times, 40_000, np.random.default_rng(12), start=start)
+    for t, time in enumerate(times[1:], start=1):
+        expected = p + (start - p) * np.exp(-0.3 * time)
+        for i in range(4):
+            assert abs(z_mean(paths[:, t, i], expected[i])) < Z_BOUND
+
+
+def test_conditioned_replicates_keep_the_first_sample_and_relax_from_it():
+    # The posterior of the first community given its reads is Dirichlet(theta p + N_0)
+    # (Dirichlet-multinomial conjugacy, e.g. Gelman et al. 2013, Bayesian Data Analysis,
+    # sec. 3.4), so replicates start near the observed composition and their mean relaxes as
+    # p + (x_0 - p) exp(-rate t) (Ewens 2004).
+    p = np.array([0.4, 0.3, 0.2, 0.1])
+    design = Design(np.full(6, 20_000), np.array([0.0, 0.5, 1.0, 2.0, 4.0, 8.0]))
+    first = np.array([800, 600, 10_600, 8_000])
+    model = NeutralModel(p, 50.0, 0.3)
+    counts = simulate_conditioned(model, design, 4000, first, np.random.default_rng(2))
+    assert np.all(counts[:, 0] == first)
+    start = first / first.sum()
+    for t in range(1, 6):
+        observed = counts[:, t] / design.depths[t]
+        expected = p + (start - p) * np.exp(-0.3 * design.times[t])
+        # the posterior mean is (theta p + N_0)/(theta + n): 0.25% from the observed start
+        np.testing.assert_allclose(observed.mean(axis=0), expected, atol=0.01)
+
+
+def test_conditioning_needs_a_time_series_and_a_matching_first_sample():
+    model = NeutralModel(np.array([0.5, 0.5]), 10.0, 0.5)
+    with pytest.raises(ValueError):
+        simulate_conditioned(model, Design(np.full(3, 10)), 2, np.array([5, 5]), 1)
+    with pytest.raises(ValueError):
+        simulate_conditioned(model, Design(np.full(3, 10), np.arange(3.0)), 2,
+                             np.array([5, 4]), 1)

@@ -1,4 +1,5 @@
-"""Cauchy combination test (Liu & Xie 2020, J. Am. Stat. Assoc. 115(529):393-402)."""
+"""Combinations of p-values: the harmonic mean p-value (Wilson 2019, PNAS 116(4):1195-1200)
+and the Cauchy combination test (Liu & Xie 2020, J. Am. Stat. Assoc. 115(529):393-402)."""
 
 from __future__ import annotations
 
@@ -8,7 +9,48 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from driftscreen.statistics.combination import cauchy_combination, cauchy_transform
+from driftscreen.calibrate import combination_statistic, combine
+from driftscreen.statistics.combination import (
+    cauchy_combination,
+    cauchy_transform,
+    harmonic_mean_pvalue,
+)
+
+
+def test_harmonic_mean_pvalue_is_the_weighted_harmonic_mean():
+    # Source: Wilson (2019), eq. 2: HMP = sum w / sum (w_j / p_j); compared with the weighted
+    # harmonic mean of scipy.stats.hmean (scipy >= 1.9 takes weights).
+    rng = np.random.default_rng(3)
+    pvalues = rng.random((20, 5)) ** 2
+    weights = rng.random((20, 5))
+    reference = [stats.hmean(p, weights=w) for p, w in zip(pvalues, weights)]
+    np.testing.assert_allclose(harmonic_mean_pvalue(pvalues, weights), reference, rtol=1e-12)
+    # hand computation: p = (0.01, 0.5), equal weights: 2 / (100 + 2) = 0.0196078...
+    assert float(harmonic_mean_pvalue(np.array([0.01, 0.5]))) == pytest.approx(2 / 102)
+
+
+def test_a_pvalue_of_one_cannot_annul_strong_evidence():
+    # Regression: p = (0.035, 0.005, 0.005, 1) gave a Cauchy-combined p-value of 1 (the
+    # transform of p = 1 is about -3e15). The harmonic mean is 4 / (1/0.035 + 400 + 1) = 0.0093.
+    pvalues = np.array([0.035, 0.005, 0.005, 1.0])
+    assert float(cauchy_combination(pvalues)[1]) > 0.99
+    assert float(harmonic_mean_pvalue(pvalues)) == pytest.approx(4 / (1 / 0.035 + 401))
+    # The calibrated combination: replicates' p-values uniform and independent, so the
+    # observed -log10 HMP of 2.03 sits in the far tail (P(HMP <= 0.0093) ~ 0.05 by Wilson's
+    # asymptotics), not at the bottom.
+    rng = np.random.default_rng(9)
+    replicate = rng.random((999, 4))
+    result = combine(pvalues, replicate)
+    assert result.statistic == pytest.approx(-np.log10(4 / (1 / 0.035 + 401)))
+    assert result.pvalue < 0.1
+
+
+def test_combination_statistic_skips_undefined_pvalues():
+    # common practice: statistics without a p-value (NaN) take no part in the combination.
+    rows = np.array([[0.02, np.nan, 0.5], [np.nan, np.nan, np.nan]])
+    values = combination_statistic(rows)
+    assert values[0] == pytest.approx(-np.log10(2 / (50 + 2)))
+    assert np.isnan(values[1])
 
 
 @pytest.mark.parametrize("p", [1e-300, 1e-16, 1e-9, 0.003, 0.2, 0.5, 0.77, 0.999999, 1.0])

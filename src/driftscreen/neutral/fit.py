@@ -64,23 +64,78 @@ MAX_START_WEIGHT = 0.75
 
 
 @dataclass(frozen=True)
+class _MomentTerms:
+    """Design-only coefficients of the pooled moment equations at every grid rate, ``(G,)``.
+
+    In units of Pi = sum_i p_i (1 - p_i), with sampling variance factors
+    s_t = g + (1 - g)/n_t (``one`` is the part proportional to g, ``depth`` the rest):
+
+        E[Q]/Pi   = v q_drift + (1 - v)(g q_one + (1 - g) q_depth)
+        E[H]/Pi   = 1 - v h_drift - (1 - v)(g h_one + (1 - g) h_depth)
+        E[D_l]/Pi = v pair_drift_l + 2 g (1 - v) m_l,          l = 1, 2
+
+    Q is the spread about the fitted mean path, H = sum_i p-hat_i (1 - p-hat_i), D_l the
+    sampling-corrected squared increments between usable samples l apart (minus the
+    fitted trend when conditioned on the first sample).
+    """
+
+    q_drift: np.ndarray
+    q_one: np.ndarray
+    q_depth: np.ndarray
+    h_drift: np.ndarray
+    h_one: np.ndarray
+    h_depth: np.ndarray
+    pair_drift: tuple[np.ndarray, np.ndarray]
+
+    def v_from_spread(self, ratio_q: np.ndarray, noise: np.ndarray) -> np.ndarray:
+        """v solving E[Q]/E[H] = ratio_q at every grid rate (the note's ratio form)."""
+        q_s = noise * self.q_one + (1.0 - noise) * self.q_depth
+        h_s = noise * self.h_one + (1.0 - noise) * self.h_depth
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return ((ratio_q * (1.0 - h_s) - q_s)
+                    / (self.q_drift - q_s + ratio_q * (self.h_drift - h_s)))
+
+    def increments(self, lag: int, n_pairs: int, v: np.ndarray,
+                   noise: np.ndarray) -> np.ndarray:
+        """E[D_lag]/E[H] at every grid rate."""
+        h_s = noise * self.h_one + (1.0 - noise) * self.h_depth
+        drift = self.pair_drift[lag - 1]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return ((v * drift + 2.0 * noise * (1.0 - v) * n_pairs)
+                    / (1.0 - v * self.h_drift - (1.0 - v) * h_s))
+
+
+@dataclass(frozen=True)
+class _ConditionalPath:
+    """Design-only pieces of the mean path p-hat (1 - e_t) + Y_0 e_t at every grid rate.
+
+    e_t = exp(-rate (t - t_0)); ``start_weight`` is e-bar = sum_t w_t e_t (capped at
+    :data:`MAX_START_WEIGHT`), p-hat = (pooled - e-bar Y_0)/(1 - e-bar), and the path at
+    sample t is alpha_t pooled + beta_t Y_0. ``trend`` is sum over the pairs l apart of
+    (e_s - e_t)^2, the factor of ||Y_0 - p||^2 in their expected squared increments.
+    """
+
+    start_weight: np.ndarray              # (G,)
+    alpha: np.ndarray                     # (G, T)
+    beta: np.ndarray                      # (G, T)
+    trend: tuple[np.ndarray, np.ndarray]  # (G,) each
+
+
+@dataclass(frozen=True)
 class _SeriesDesign:
     """Design-only quantities of the time-series moment equations.
 
     Usable samples have depth >= 2 (the sampling correction divides by n - 1); the
-    adjacent pairs are successive usable samples.
+    adjacent pairs are successive usable samples. ``path`` is set when the fit is
+    conditioned on the first sample.
     """
 
     adjacent: tuple[np.ndarray, np.ndarray]  # sample indices (s, t) of successive usable samples
     second: tuple[np.ndarray, np.ndarray]    # usable samples two apart
     adjacent_gaps: np.ndarray  # days between successive usable samples
-    log_grid: np.ndarray      # (G,) grid of log rate over rate_bounds(design)
-    r_w: np.ndarray           # (G,) R_w at each grid rate
-    adjacent_shape: np.ndarray  # (G,) sum over adjacent pairs of 1 - exp(-rate dt)
-    second_shape: np.ndarray  # (G,) the same over pairs two apart
-    s1: float                 # sum_t w_t / n_t
-    s2: float                 # sum_t w_t^2 / n_t
-    w2: float                 # sum_t w_t^2
+    log_grid: np.ndarray       # (G,) grid of log rate over rate_bounds(design)
+    terms: _MomentTerms
+    path: _ConditionalPath | None
 
     @property
     def identifiable(self) -> bool:
@@ -92,9 +147,25 @@ class _SeriesDesign:
         """Separating noise from drift needs pairs two apart as well (four usable samples)."""
         return self.second[0].size >= 2
 
-    def sampling_sums(self, noise: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """S1 = sum_t w_t s_t and S2 = sum_t w_t^2 s_t, s_t = g + (1 - g)/n_t, per g."""
-        return noise + (1.0 - noise) * self.s1, noise * self.w2 + (1.0 - noise) * self.s2
+    def pairs(self, lag: int) -> tuple[np.ndarray, np.ndarray]:
+        return self.adjacent if lag == 1 else self.second
+
+
+@dataclass(frozen=True)
+class _Crossing:
+    """Where a gap over the rate grid first turns non-negative, per row: cell and fraction."""
+
+    low: np.ndarray        # (R,) index of the grid point below the crossing
+    fraction: np.ndarray   # (R,) position between low and low + 1
+
+    def at(self, values: np.ndarray) -> np.ndarray:
+        """``values`` ``(G,)`` or ``(R, G)`` interpolated at each row's crossing."""
+        values = np.broadcast_to(values, (self.low.size, values.shape[-1]))
+        rows = np.arange(self.low.size)
+        below, above = values[rows, self.low], values[rows, np.minimum(self.low + 1,
+                                                                       values.shape[1] - 1)]
+        return below + self.fraction * (above - below)
+
 
 def rate_bounds(design: Design) -> tuple[float, float]:
     """Search range of the rate (per day) for a time-series design.
@@ -173,7 +244,8 @@ def fit_batch(counts: np.ndarray, design: Design,
     if design.n_samples < 2:
         raise InputError("a dataset with one sample cannot be fitted",
                          fix="provide at least two samples per dataset")
-    series = _series_design(design) if design.is_time_series else None
+    series = (_series_design(design, options.conditioned) if design.is_time_series
+              else None)
     p = pooled_fractions(counts, design)
     n_rep = counts.shape[0]
     v, noise = np.empty(n_rep), np.full(n_rep, options.fixed_noise or 0.0)
@@ -289,48 +361,90 @@ def _series_fit(counts: np.ndarray, p: np.ndarray, design: Design, series: _Seri
                 fixed_noise: float | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """v-hat, rate-hat and noise-hat from the pooled spread and increments at lags 1 and 2.
 
-    Pooled over taxa, with H = sum_i p_i (1 - p_i), the weighted spread
-    Q = sum_i sum_t w_t (Y_it - p_i)^2 and the sampling-corrected squared increments D_1
-    between successive samples and D_2 between samples two apart have (design note,
-    section 5, with sampling variance factors s_t = g + (1 - g)/n_t)
+    Pooled over taxa, the spread Q about the fitted mean, H = sum_i p_i (1 - p_i) and the
+    sampling-corrected squared increments D_1 between successive samples and D_2 between
+    samples two apart have the expectations of :class:`_MomentTerms` (design note,
+    section 5, with sampling variance factors s_t = g + (1 - g)/n_t). The correction
+    Y(1 - Y)/(n - 1) removes multinomial noise exactly, and Dirichlet-multinomial reads
+    leave g X (1 - X) per sample: the nugget 2 g (1 - v) Pi, the same at every lag. For
+    each rate on a grid the spread equation gives v; the rate is where the D_1 equation
+    holds; g is where the D_2 equation holds as well. Successive samples carry most of
+    the information on the rate and the variance about the mean carries the plateau.
+    Least squares on the variogram over all pairs (the note's suggestion) is less
+    efficient because its many long-lag pairs are noisy and strongly correlated: in
+    simulations with theta = 50, rate = 0.05 per day and 60 daily samples, the spread (sd)
+    of log rate-hat is 0.45 here against 1.0 for the variogram fit. Sums are pooled over
+    taxa: weighting taxa unequally makes the ratio of noisy sums strongly biased when
+    p-hat is noisy.
 
-        E[Q] / E[H] = [v (1 - R_w) + (1 - v)(S1 - S2)] / [1 - v R_w - (1 - v) S2]
-        E[D_l] / E[H] = 2 [v S_l(rate) + g (1 - v) m_l] / [1 - v R_w - (1 - v) S2],
-
-    S1 = sum_t w_t s_t, S2 = sum_t w_t^2 s_t, S_l = sum over the m_l pairs of
-    1 - exp(-rate dt). The correction Y(1 - Y)/(n - 1) removes multinomial noise exactly,
-    and Dirichlet-multinomial reads leave g X (1 - X) per sample: the nugget
-    2 g (1 - v) Pi, the same at every lag. For each rate on a grid the first equation
-    gives v; the rate is where the D_1 equation holds; g is where the D_2 equation holds
-    as well. Successive samples carry most of the information on the rate and the variance
-    about the mean (corrected through R_w) carries the plateau. Least squares on the
-    variogram over all pairs (the note's suggestion) is less efficient because its many
-    long-lag pairs are noisy and strongly correlated: in simulations with theta = 50,
-    rate = 0.05 per day and 60 daily samples, the spread (sd) of log rate-hat is 0.45 here
-    against 1.0 for the variogram fit. Sums are pooled over taxa: weighting taxa unequally
-    makes the ratio of noisy sums strongly biased when p-hat is noisy.
+    Conditioned on the first sample, the mean path is p (1 - e_t) + Y_0 e_t,
+    e_t = exp(-rate (t - t_0)), so Q, H and the trend part of D_l are evaluated on the
+    path of every grid rate (:func:`_observed_ratios`).
     """
+    ratio_q, ratio_1, ratio_2 = _observed_ratios(counts, p, design, series)
+    noise = np.full(counts.shape[0], fixed_noise or 0.0)
+    if not series.identifiable:
+        last = series.log_grid.size - 1
+        crossing = _Crossing(np.full(noise.size, last), np.zeros(noise.size))
+    else:
+        crossing = _rate_crossing(ratio_q, ratio_1, series, noise)
+        if fixed_noise is None and series.noise_identifiable:
+            rate = np.exp(crossing.at(series.log_grid))
+            rows = successive_correlation(rate, series.adjacent_gaps) >= NOISE_MIN_CORRELATION
+            if rows.any():
+                noise[rows] = _noise_estimate(ratio_q[rows], ratio_1[rows], ratio_2[rows],
+                                              series)
+                refit = _rate_crossing(ratio_q[rows], ratio_1[rows], series, noise[rows])
+                crossing.low[rows], crossing.fraction[rows] = refit.low, refit.fraction
+    v = crossing.at(series.terms.v_from_spread(ratio_q, noise[:, None]))
+    return v, np.exp(crossing.at(series.log_grid)), noise
+
+
+def _observed_ratios(counts: np.ndarray, p: np.ndarray, design: Design,
+                     series: _SeriesDesign) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Q/H, D_1/H and D_2/H of every table, ``(R, 1)`` or, conditioned, ``(R, G)``."""
     depths = design.depths.astype(np.float64)
     proportions = counts / depths[:, None]
-    hetero = (p * (1.0 - p)).sum(axis=1)
-    spread = np.einsum("t,rtk->r", _weights(design), (proportions - p[:, None, :]) ** 2)
+    increments = [_pair_increments(proportions, depths, series.pairs(lag))[:, None]
+                  for lag in (1, 2)]
+    w = _weights(design)
+    if series.path is None:
+        hetero = (p * (1.0 - p)).sum(axis=1)[:, None]
+        spread = np.einsum("t,rtk->r", w, (proportions - p[:, None, :]) ** 2)[:, None]
+    else:
+        path = series.path
+        first = proportions[:, 0, :]
+        with_pooled = np.einsum("rtk,rk->rt", proportions, p)
+        with_first = np.einsum("rtk,rk->rt", proportions, first)
+        squares = np.einsum("rtk,rtk->rt", proportions, proportions)
+        pp, pf, ff = (p * p).sum(axis=1), (p * first).sum(axis=1), (first * first).sum(axis=1)
+        spread = (squares @ w)[:, None] - 2.0 * with_pooled @ (w * path.alpha).T \
+            - 2.0 * with_first @ (w * path.beta).T + np.outer(pp, (w * path.alpha**2).sum(1)) \
+            + 2.0 * np.outer(pf, (w * path.alpha * path.beta).sum(1)) \
+            + np.outer(ff, (w * path.beta**2).sum(1))
+        e = path.start_weight
+        hetero = 1.0 - (pp[:, None] - 2.0 * e * pf[:, None] + e**2 * ff[:, None]) / (1.0 - e)**2
+        departure = (pp - 2.0 * pf + ff)[:, None] / (1.0 - e) ** 2      # ||Y_0 - p-hat||^2
+        increments = [d - departure * trend for d, trend in zip(increments, path.trend)]
     with np.errstate(divide="ignore", invalid="ignore"):
-        ratio_q = spread / hetero
-        ratio_1 = _pair_increments(proportions, depths, series.adjacent) / hetero
-        ratio_2 = _pair_increments(proportions, depths, series.second) / hetero
-    noise = np.full(ratio_q.size, fixed_noise or 0.0)
-    if not series.identifiable:
-        upper = np.exp(series.log_grid[-1])
-        return (_v_from_ratio(ratio_q, series.r_w[-1], series, noise), np.full(noise.size, upper),
-                noise)
-    rate = np.exp(_crossing(_increment_gap(ratio_q, ratio_1, series, noise), series.log_grid))
-    if fixed_noise is None and series.noise_identifiable:
-        rows = successive_correlation(rate, series.adjacent_gaps) >= NOISE_MIN_CORRELATION
-        if rows.any():
-            noise[rows] = _noise_estimate(ratio_q[rows], ratio_1[rows], ratio_2[rows], series)
-            rate[rows] = np.exp(_crossing(_increment_gap(ratio_q[rows], ratio_1[rows], series,
-                                                         noise[rows]), series.log_grid))
-    return _v_from_ratio(ratio_q, correlation_weight(rate, design), series, noise), rate, noise
+        return spread / hetero, increments[0] / hetero, increments[1] / hetero
+
+
+def _rate_crossing(ratio_q: np.ndarray, ratio_1: np.ndarray, series: _SeriesDesign,
+                   noise: np.ndarray) -> _Crossing:
+    """Where the predicted lag-1 increment reaches the observed one, per table.
+
+    Only rates where the spread equation gives a valid v (in (0, 1)) count. Searched from
+    the fast end of the rate grid: conditioned on a first sample, very slow rates pin the
+    mean path to that sample and a spurious crossing with a large drift variance can
+    appear there. Without a crossing, the rate where the two come closest.
+    """
+    g = noise[:, None]
+    v = series.terms.v_from_spread(ratio_q, g)
+    valid = (v >= V_MIN) & (v <= V_MAX)
+    gap = series.terms.increments(1, series.adjacent[0].size, np.clip(v, V_MIN, V_MAX),
+                                  g) - ratio_1
+    return _crossing(np.where(valid, gap, np.nan), last=True)
 
 
 def successive_correlation(rate: np.ndarray, gaps: np.ndarray) -> np.ndarray:
@@ -348,32 +462,6 @@ def _pair_increments(proportions: np.ndarray, depths: np.ndarray,
     return np.sum(squared - noise[:, first] - noise[:, second], axis=(1, 2))
 
 
-def _v_from_ratio(ratio_q: np.ndarray, r_w: np.ndarray | float, series: _SeriesDesign,
-                  noise: np.ndarray) -> np.ndarray:
-    """v solving E[Q]/E[H] = ratio_q for a given R_w and noise g (the note's ratio form)."""
-    s1, s2 = series.sampling_sums(noise)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return ((ratio_q * (1.0 - s2) - (s1 - s2))
-                / (1.0 - r_w + ratio_q * r_w - ratio_q * s2 - (s1 - s2)))
-
-
-def _predicted_increments(v: np.ndarray, shape: np.ndarray, n_pairs: int, r_w: np.ndarray,
-                          series: _SeriesDesign, noise: np.ndarray) -> np.ndarray:
-    """E[D_l] / E[H] = 2 [v S_l + g (1 - v) m_l] / [1 - v R_w - (1 - v) S2]."""
-    _, s2 = series.sampling_sums(noise)
-    return 2.0 * (v * shape + noise * (1.0 - v) * n_pairs) / (1.0 - v * r_w - (1.0 - v) * s2)
-
-
-def _increment_gap(ratio_q: np.ndarray, ratio_d: np.ndarray, series: _SeriesDesign,
-                   noise: np.ndarray) -> np.ndarray:
-    """Predicted minus observed lag-1 increment ratio at every grid rate, (R, G)."""
-    g = noise[:, None]
-    v = np.clip(_v_from_ratio(ratio_q[:, None], series.r_w[None, :], series, g), V_MIN, V_MAX)
-    predicted = _predicted_increments(v, series.adjacent_shape, series.adjacent[0].size,
-                                      series.r_w, series, g)
-    return predicted - ratio_d[:, None]
-
-
 def _noise_estimate(ratio_q: np.ndarray, ratio_1: np.ndarray, ratio_2: np.ndarray,
                     series: _SeriesDesign) -> np.ndarray:
     """g where the lag-2 equation holds once v and the rate solve the others, ``(R,)``.
@@ -387,39 +475,49 @@ def _noise_estimate(ratio_q: np.ndarray, ratio_1: np.ndarray, ratio_2: np.ndarra
     range (a drift so slow it is a straight trend, with the noise explaining everything
     else) are not solutions.
     """
-    gap = np.empty((ratio_q.size, NOISE_GRID.size))
+    gap = np.empty((ratio_q.shape[0], NOISE_GRID.size))
+    n_second = series.second[0].size
     for j, g in enumerate(NOISE_GRID):
-        noise = np.full(ratio_q.size, g)
-        log_rate = _crossing(_increment_gap(ratio_q, ratio_1, series, noise), series.log_grid)
-        interior = log_rate > series.log_grid[0]
-        r_w = np.interp(log_rate, series.log_grid, series.r_w)
-        shape = np.interp(log_rate, series.log_grid, series.second_shape)
-        v = np.clip(_v_from_ratio(ratio_q, r_w, series, noise), V_MIN, V_MAX)
-        gap[:, j] = np.where(interior, ratio_2 - _predicted_increments(
-            v, shape, series.second[0].size, r_w, series, noise), np.nan)
+        noise = np.full((ratio_q.shape[0], 1), g)
+        crossing = _rate_crossing(ratio_q, ratio_1, series, noise[:, 0])
+        v = np.clip(series.terms.v_from_spread(ratio_q, noise), V_MIN, V_MAX)
+        lag_2 = crossing.at(ratio_2 - series.terms.increments(2, n_second, v, noise))
+        interior = (crossing.low > 0) | (crossing.fraction > 0)
+        gap[:, j] = np.where(interior, lag_2, np.nan)
     gap = np.nan_to_num(gap, nan=-np.inf)
     closest = NOISE_GRID[np.argmax(gap, axis=1)]
-    return np.where((gap >= 0).any(axis=1), _crossing(gap, NOISE_GRID), closest)
+    return np.where((gap >= 0).any(axis=1), _crossing(gap).at(NOISE_GRID), closest)
 
 
-def _crossing(gap: np.ndarray, log_grid: np.ndarray) -> np.ndarray:
-    """Log rate where ``gap`` first turns from negative to non-negative, interpolated.
+def _crossing(gap: np.ndarray, last: bool = False) -> _Crossing:
+    """Where ``gap`` ``(R, G)`` turns from negative to non-negative, interpolated.
 
-    A gap that is non-negative at the lowest rate puts the rate on the lower bound (the
-    increments are as small as the slowest admissible dynamics predict); one that stays
-    negative puts it on the upper bound (successive samples look independent).
+    The first such turn: a gap that is non-negative at the first grid point puts the
+    crossing there, one that stays negative at the last point. With ``last``, the last
+    turn between finite values (NaN marks invalid grid points), and without any turn the
+    finite point where |gap| is smallest (the last point if none is finite).
     """
-    above = np.nan_to_num(gap, nan=-np.inf) >= 0
-    index = np.argmax(above, axis=1)
-    never = ~above.any(axis=1)
+    n_grid = gap.shape[1]
+    if last:
+        finite = np.isfinite(gap)
+        turns = (finite[:, 1:] & finite[:, :-1] & (gap[:, 1:] >= 0) & (gap[:, :-1] < 0))
+        closest = np.argmin(np.where(finite, np.abs(gap), np.inf), axis=1)
+        closest = np.where(finite.any(axis=1), closest, n_grid - 1)
+        index = np.where(turns.any(axis=1), n_grid - 1 - np.argmax(turns[:, ::-1], axis=1),
+                         -1)
+    else:
+        above = np.nan_to_num(gap, nan=-np.inf) >= 0
+        index = np.where(above.any(axis=1), np.argmax(above, axis=1), n_grid)
+        closest = np.where(index == n_grid, n_grid - 1, 0)
+        index = np.where((index == n_grid) | (index == 0), -1, index)
     rows = np.arange(gap.shape[0])
-    inner = np.clip(index, 1, log_grid.size - 1)
+    inner = np.clip(index, 1, n_grid - 1)
     low, high = gap[rows, inner - 1], gap[rows, inner]
     with np.errstate(divide="ignore", invalid="ignore"):
         fraction = np.clip(np.nan_to_num(-low / (high - low), nan=1.0), 0.0, 1.0)
-    log_rate = log_grid[inner - 1] + fraction * (log_grid[inner] - log_grid[inner - 1])
-    log_rate = np.where(index == 0, log_grid[0], log_rate)
-    return np.where(never, log_grid[-1], log_rate)
+    interpolated = index > 0
+    return _Crossing(np.where(interpolated, inner - 1, closest),
+                     np.where(interpolated, fraction, 0.0))
 
 
 def _gram_terms(counts: np.ndarray, design: Design) -> tuple[np.ndarray, np.ndarray]:
@@ -444,24 +542,116 @@ def _half_variogram(gram: np.ndarray, own: np.ndarray, first: np.ndarray,
     return 0.5 * (own[:, first] + own[:, second]) - gram[:, first, second]
 
 
-def _series_design(design: Design) -> _SeriesDesign:
-    """Successive usable samples and the design-only functions of the rate on its grid."""
+def _series_design(design: Design, conditioned: bool = False) -> _SeriesDesign:
+    """Successive usable samples and the design-only functions of the rate on its grid.
+
+    Cached per design (the same design is fitted for the data, the pilot and every chunk
+    of replicates).
+    """
+    key = (design.times.tobytes(), design.depths.tobytes(), conditioned)
+    if key not in _SERIES_CACHE:
+        if len(_SERIES_CACHE) >= SERIES_CACHE_SIZE:
+            _SERIES_CACHE.pop(next(iter(_SERIES_CACHE)))
+        _SERIES_CACHE[key] = _new_series_design(design, conditioned)
+    return _SERIES_CACHE[key]
+
+
+#: Designs whose series quantities are kept (least recently added dropped first).
+SERIES_CACHE_SIZE = 8
+_SERIES_CACHE: dict[tuple, _SeriesDesign] = {}
+
+
+def _new_series_design(design: Design, conditioned: bool) -> _SeriesDesign:
     usable = np.flatnonzero(design.depths >= 2)
     adjacent, second = (usable[:-1], usable[1:]), (usable[:-2], usable[2:])
     low, high = rate_bounds(design)
     n_grid = int(np.ceil(np.log(high / low) / LOG_RATE_STEP)) + 1
     log_grid = np.linspace(np.log(low), np.log(high), n_grid)
-    rates = np.exp(log_grid)[:, None]
     gaps = design.times[adjacent[1]] - design.times[adjacent[0]]
-    gaps_2 = design.times[second[1]] - design.times[second[0]]
+    if conditioned:
+        terms, path = _conditional_terms(design, np.exp(log_grid), (adjacent, second))
+    else:
+        terms, path = _stationary_terms(design, np.exp(log_grid), (adjacent, second)), None
+    return _SeriesDesign(adjacent, second, gaps, log_grid, terms, path)
+
+
+def _stationary_terms(design: Design, rates: np.ndarray,
+                      pair_sets: tuple[tuple[np.ndarray, np.ndarray], ...]) -> _MomentTerms:
+    """Terms of a stationary series about the pooled mean (design note, section 5)."""
     w = _weights(design)
     depths = design.depths.astype(np.float64)
-    return _SeriesDesign(adjacent, second, gaps, log_grid,
-                         correlation_weight(np.exp(log_grid), design),
-                         -np.expm1(-rates * gaps).sum(axis=1),
-                         -np.expm1(-rates * gaps_2).sum(axis=1),
-                         float(np.sum(w / depths)), float(np.sum(w**2 / depths)),
-                         float(np.sum(w**2)))
+    r_w = correlation_weight(rates, design)
+    s1, s2, w2 = float(np.sum(w / depths)), float(np.sum(w**2 / depths)), float(np.sum(w**2))
+    ones = np.ones_like(rates)
+    pair_drift = tuple(2.0 * -np.expm1(-rates[:, None] * (design.times[b] - design.times[a])
+                                       ).sum(axis=1) for a, b in pair_sets)
+    return _MomentTerms(1.0 - r_w, (1.0 - w2) * ones, (s1 - s2) * ones, r_w, w2 * ones,
+                        s2 * ones, pair_drift)
+
+
+def _conditional_terms(design: Design, rates: np.ndarray,
+                       pair_sets: tuple[tuple[np.ndarray, np.ndarray], ...]
+                       ) -> tuple[_MomentTerms, _ConditionalPath]:
+    """Terms of a series conditioned on its first sample, about the mean path.
+
+    Given X(t_0), the community is X_t = p + (X_0 - p) e_t + eps_t with
+    Cov(eps_s, eps_t) = v pi (exp(-rate |t_s - t_t|) - e_s e_t) (the covariance given
+    X(t_0) of an Ornstein-Uhlenbeck approximation of the pooled diffusion; design note,
+    section 2), and reads add independent noise of variance (1 - v) pi s_t. The residuals
+    of the path are a linear map M of the noise vector z (eps plus sampling noise, z_0 the
+    sampling noise of the first sample): r = M z with
+    M = I - (1 - e) c^T - e delta_0^T and p-hat - p = c^T z, c = (w - e-bar delta_0)/(1 - e-bar).
+    So E[Q]/Pi = sum_t w_t (M S M^T)_tt and Var(p-hat)/pi = c^T S c for each covariance S
+    of the drift, of g and of 1/n_t; the squared increment of a pair gets the drift part
+    2 - 2 exp(-rate lag) - (e_s - e_t)^2 and the trend (e_s - e_t)^2 ||X_0 - p||^2.
+    """
+    w = _weights(design)
+    times = design.times - design.times[0]
+    inverse_depth = 1.0 / design.depths.astype(np.float64)
+    lags = np.abs(times[:, None] - times[None, :])
+    columns = {name: np.empty(rates.size) for name in
+               ("q_drift", "q_one", "q_depth", "h_drift", "h_one", "h_depth")}
+    alpha, beta = np.empty((rates.size, times.size)), np.empty((rates.size, times.size))
+    start_weight = np.empty(rates.size)
+    for j, rate in enumerate(rates):
+        e = np.exp(-rate * times)
+        e_bar = min(float(w @ e), MAX_START_WEIGHT)
+        c = w / (1.0 - e_bar)
+        c[0] -= e_bar / (1.0 - e_bar)
+        drift = np.exp(-rate * lags) - np.outer(e, e)
+        for kind, covariance in (("drift", drift), ("one", None), ("depth", inverse_depth)):
+            columns[f"q_{kind}"][j], columns[f"h_{kind}"][j] = _residual_moments(
+                covariance, w, c, e)
+        start_weight[j] = e_bar
+        alpha[j] = (1.0 - e) / (1.0 - e_bar)
+        beta[j] = (e - e_bar) / (1.0 - e_bar)
+    pair_drift, trend = [], []
+    for a, b in pair_sets:
+        e_pairs = np.exp(-rates[:, None] * times[None, :])
+        step = (e_pairs[:, a] - e_pairs[:, b]) ** 2
+        pair_drift.append((-2.0 * np.expm1(-rates[:, None] * (times[b] - times[a]))
+                           - step).sum(axis=1))
+        trend.append(step.sum(axis=1))
+    return (_MomentTerms(**columns, pair_drift=tuple(pair_drift)),
+            _ConditionalPath(start_weight, alpha, beta, tuple(trend)))
+
+
+def _residual_moments(covariance: np.ndarray | None, w: np.ndarray, c: np.ndarray,
+                      e: np.ndarray) -> tuple[float, float]:
+    """sum_t w_t (M S M^T)_tt and c^T S c for M = I - (1 - e) c^T - e delta_0^T.
+
+    ``covariance`` is a matrix S, a vector (a diagonal S) or None (the identity).
+    """
+    u = 1.0 - e
+    if covariance is None or covariance.ndim == 1:
+        diagonal = np.ones_like(w) if covariance is None else covariance
+        s_c = diagonal * c                                   # S c
+        m_s = np.diag(diagonal) - np.outer(u, s_c) - np.outer(e, np.eye(w.size)[0] * diagonal)
+    else:
+        s_c = covariance @ c
+        m_s = covariance - np.outer(u, s_c) - np.outer(e, covariance[0])
+    diagonal_mm = np.diag(m_s) - u * (m_s @ c) - e * m_s[:, 0]
+    return float(w @ diagonal_mm), float(c @ s_c)
 
 
 def _lag_groups(design: Design) -> tuple[np.ndarray, ...]:

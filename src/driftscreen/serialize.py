@@ -73,13 +73,14 @@ def summary_from_dict(data: Mapping[str, Any]) -> DatasetSummary:
 def model_to_dict(model: NeutralModel) -> dict[str, Any]:
     return {"p": floats_to_json(model.p), "theta": float_to_json(model.theta),
             "rate": None if model.rate is None else float_to_json(model.rate),
-            "flags": list(model.flags)}
+            "noise": float_to_json(model.noise), "flags": list(model.flags)}
 
 
 def model_from_dict(data: Mapping[str, Any]) -> NeutralModel:
     rate = data["rate"]
     return NeutralModel(p=floats_from_json(data["p"]), theta=float_from_json(data["theta"]),
                         rate=None if rate is None else float_from_json(rate),
+                        noise=float_from_json(data.get("noise", 0.0)),
                         flags=tuple(data["flags"]))
 
 

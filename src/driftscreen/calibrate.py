@@ -444,13 +444,15 @@ def with_neutral_taylor_line(table: pd.DataFrame) -> pd.DataFrame:
     For a table with ``mean``, ``neutral_variance`` and ``used`` per taxon (the
     fluctuation-scaling diagnosis), the line of log neutral variance on log mean over the
     used taxa (Taylor 1961, Nature 189:732), with the statistic's own taxon weights, is
-    what neutral drift predicts for this dataset's taxa; its intercept and slope are
+    what neutral drift predicts for this dataset's taxa (those with p > 0: a taxon that is
+    declining towards absence has none); its intercept and slope are
     repeated in every row (``neutral_intercept``, ``neutral_slope``). Other tables are
     returned as they are.
     """
     if not {"mean", "neutral_variance", "used"} <= set(table.columns):
         return table
-    used = table["used"].to_numpy(dtype=bool)[None]
+    positive = table["neutral_variance"].to_numpy(dtype=np.float64) > 0
+    used = (table["used"].to_numpy(dtype=bool) & positive)[None]
     weights = (table["weight"].to_numpy(dtype=np.float64)[None]
                if "weight" in table.columns else None)
     intercept, slope = taylor_fit(table["mean"].to_numpy(dtype=np.float64)[None],

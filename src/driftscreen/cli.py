@@ -205,6 +205,7 @@ def add_test(sub: argparse._SubParsersAction) -> None:
                    help="also draw the null distributions, Taylor's law and the volatility "
                         "of groups of taxa as PNG files in DIR (needs driftscreen[plot])")
     add_detectable_option(p)
+    add_influence_option(p)
     p.set_defaults(handler=run_test)
 
 
@@ -215,7 +216,7 @@ def run_test(args: argparse.Namespace) -> int:
     report = test_command(dataset, replicates=args.replicates, groupings=args.groupings,
                           seed=args.seed, jobs=args.jobs, output=args.output,
                           detectable=args.detectable, messages=sys.stderr,
-                          figures=args.figures)
+                          figures=args.figures, influence=args.influence)
     sys.stdout.write(report)
     return 0
 
@@ -247,6 +248,7 @@ def add_screen(sub: argparse._SubParsersAction) -> None:
                         "law, volatility of groups of taxa) as PNG files in DIR; without "
                         "DIR in OUT/figures (needs driftscreen[plot])")
     add_detectable_option(p)
+    add_influence_option(p)
     p.set_defaults(handler=run_screen)
 
 
@@ -266,7 +268,7 @@ def run_screen(args: argparse.Namespace) -> int:
             replicates=args.replicates, groupings=args.groupings, seed=args.seed,
             jobs=args.jobs, backend=args.backend, scheduler=args.scheduler,
             messages=None if args.quiet else sys.stderr, detectable=args.detectable,
-            figures=screen_figures_folder(args))
+            figures=screen_figures_folder(args), influence=args.influence)
     except KeyboardInterrupt:
         print(f"driftscreen: interrupted; finished datasets are kept in {args.out}: run the "
               "same command again to go on", file=sys.stderr)
@@ -282,6 +284,13 @@ def add_detectable_option(parser: argparse.ArgumentParser) -> None:
                         help="for a dataset where neutrality is not rejected, add a note on "
                              "the weakest logistic niche structure its design detects with "
                              "80%% power (a quick power run; takes time)")
+
+
+def add_influence_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--no-influence", dest="influence", action="store_false",
+                        help="do not look for the single sample a rejection rests on most "
+                             "(by default every dataset with combined p <= 0.05 is tested "
+                             "again without its most influential sample)")
 
 
 def add_power(sub: argparse._SubParsersAction) -> None:

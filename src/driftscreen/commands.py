@@ -32,6 +32,8 @@ RESULTS_JSON_FILE = "results.json"
 REPORT_FILE = "report.txt"
 
 
+#: Fingerprint entry of a screen run without the most influential samples.
+INFLUENCE_OFF = "off"
 SIMULATION_MODELS = ("neutral", "logistic", "lotka-volterra")
 TRUTH_FILE = "truth.tsv"
 
@@ -135,15 +137,19 @@ def choose_dataset(datasets: Sequence[Dataset], name: str | None, source: str) -
 
 def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int, jobs: int,
                  output: str | None = None, detectable: bool = False,
-                 messages: TextIO | None = None, figures: str | None = None) -> str:
+                 messages: TextIO | None = None, figures: str | None = None,
+                 influence: bool = True) -> str:
     """`driftscreen test`: the report text (also written to ``output`` if given).
 
-    With ``detectable``, a dataset whose combined test does not reject gets a note on what
+    With ``influence``, a dataset whose combined p-value is at most 0.05 gets its most
+    influential sample and its p-values without it (:mod:`driftscreen.influence`). With
+    ``detectable``, a dataset whose combined test does not reject gets a note on what
     its design could have detected (:func:`driftscreen.power.detectable_line`). With
     ``figures``, the figures of :func:`driftscreen.report.figures.write_figures` go into
     that folder (matplotlib is checked for before any work).
     """
     from driftscreen.calibrate import COMBINED, CalibrationSettings, neutrality_test
+    from driftscreen.influence import wants_influence, with_influence
     from driftscreen.power import detectable_line, with_detectable_line
     from driftscreen.reanalysis import depth_sensitivity_line
     from driftscreen.report.figures import require_matplotlib, write_figures
@@ -151,19 +157,23 @@ def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int
 
     if figures is not None:
         require_matplotlib()
+    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
     result = neutrality_test(dataset, replicates=replicates, groupings=groupings, seed=seed,
                              jobs=jobs)
+    if influence and wants_influence(result):
+        if messages is not None:
+            print("driftscreen: rejected; finding the sample the rejection rests on most and "
+                  "testing again without it", file=messages, flush=True)
+        result = with_influence(result, dataset, settings, jobs=jobs)
     if detectable and verdict_word(result.statistics[COMBINED].pvalue) == "not rejected":
         if messages is not None:
             print("driftscreen: not rejected; a quick power run estimates what this design "
                   "can detect", file=messages, flush=True)
-        settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
         result = with_detectable_line(result, detectable_line(dataset, settings, jobs=jobs))
     if dataset.from_relative:
         if messages is not None:
             print("driftscreen: converted from relative abundances; testing again at a tenfold "
                   "lower depth", file=messages, flush=True)
-        settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
         result = replace(result, notes=tuple(result.notes)
                          + (depth_sensitivity_line(dataset, result, settings),))
     report = result.summary()
@@ -196,7 +206,7 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
                    intake: Mapping[str, Any], replicates: int, groupings: int, seed: int,
                    jobs: int = 1, backend: str = "loky", scheduler: str | None = None,
                    messages: TextIO | None = None, detectable: bool = False,
-                   figures: Path | None = None) -> list[Path]:
+                   figures: Path | None = None, influence: bool = True) -> list[Path]:
     """`driftscreen screen`: test every dataset of a table, resumably; write the outputs.
 
     Parameters
@@ -220,6 +230,10 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
     figures:
         Folder for the figures of every analysed dataset
         (:func:`driftscreen.report.figures.write_figures`); ``None`` draws none.
+    influence:
+        Name the most influential sample of every dataset whose combined p-value is at
+        most 0.05 (see :func:`driftscreen.screen.screen`); turning it off is part of the
+        fingerprint.
 
     Returns
     -------
@@ -251,9 +265,12 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
         statistics=screen_statistics(groupings))
     if detectable:
         fingerprint["detectable"] = detectable_settings()
+    if not influence:
+        fingerprint["influence"] = INFLUENCE_OFF
     store = ResultStore.open(out, fingerprint)
     with execution_backend(backend, scheduler, jobs) as n_jobs:
-        run = screen(datasets, settings, jobs=n_jobs, store=store, messages=messages)
+        run = screen(datasets, settings, jobs=n_jobs, store=store, messages=messages,
+                     influence=influence)
         run = add_depth_sensitivity(run, datasets, store, messages)
         if detectable:
             run = add_detectable_lines(run, datasets, n_jobs, store, messages)

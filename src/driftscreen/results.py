@@ -4,7 +4,9 @@ A :class:`NeutralityResult` holds, per statistic, a :class:`StatisticResult` wit
 ``statistic``, ``pvalue`` and ``null_distribution`` (the bootstrap replicates), effect
 sizes, and the fitted null with bootstrap intervals; ``diagnostics`` holds, per statistic,
 a table of what drives it on the observed data (per taxon, pool of rare taxa or grouping).
-``summary()`` renders the fixed-width plain-text report of :mod:`driftscreen.report.text`.
+``influence`` names, for a rejected dataset, the single sample the rejection rests on most
+(:mod:`driftscreen.influence`). ``summary()`` renders the fixed-width plain-text report of
+:mod:`driftscreen.report.text`.
 """
 
 from __future__ import annotations
@@ -110,12 +112,44 @@ class DatasetSummary:
 
 
 @dataclass(frozen=True)
+class SampleInfluence:
+    """The most influential single sample of a rejected dataset (see :mod:`driftscreen.influence`).
+
+    Attributes
+    ----------
+    sample:
+        The sample's id.
+    index:
+        Its position among the dataset's samples (0-based, time order for a time series).
+    score:
+        Its outlyingness under the fitted neutral null (about 1 for a neutral sample).
+    pvalue:
+        Combined p-value of the dataset without this sample (a full parametric bootstrap
+        with the same settings).
+    pvalues:
+        Every other statistic's p-value without this sample, by name (NaN where none).
+    verdict_changes:
+        Whether leaving the sample out changes the verdict at the level the influence was
+        computed for (rejected with it, not rejected without it).
+    """
+
+    sample: str
+    index: int
+    score: float
+    pvalue: float
+    pvalues: dict[str, float]
+    verdict_changes: bool
+
+
+@dataclass(frozen=True)
 class NeutralityResult:
     """Outcome of :func:`driftscreen.neutrality_test` for one dataset.
 
     ``diagnostics`` maps a statistic's name to the table its ``diagnose`` gives on the
     observed data, made storable by :func:`driftscreen.calibrate.storable_table` (taxon
     ids instead of column indices, numbers in 6 significant digits); empty if none.
+    ``influence`` is the most influential sample of a rejected dataset, ``None`` when the
+    dataset was not rejected or the influence was not computed.
     """
 
     dataset: DatasetSummary
@@ -126,6 +160,7 @@ class NeutralityResult:
     seed: int
     notes: tuple[str, ...] = field(default=())
     diagnostics: dict[str, pd.DataFrame] = field(default_factory=dict)
+    influence: SampleInfluence | None = None
 
     def __getitem__(self, name: str) -> StatisticResult:
         return self.statistics[name]

@@ -9,7 +9,10 @@ re-fitting; Davison & Hinkley 1997, ch. 4). The screen
 3. plans the others (observed fit and statistics), possibly in parallel;
 4. runs the replicate chunks of all of them through ONE joblib ``Parallel`` generator and,
    as soon as a dataset's last chunk is back, assembles it and saves it atomically;
-5. adjusts the p-values of every statistic across datasets by Benjamini-Hochberg (1995).
+5. names the most influential sample of every dataset whose combined p-value is at most
+   0.05 and tests it again without that sample (:mod:`driftscreen.influence`), again all
+   chunks through one ``Parallel`` generator, saving each dataset with its influence;
+6. adjusts the p-values of every statistic across datasets by Benjamini-Hochberg (1995).
 
 Random streams are keyed by the master seed and the dataset's name
 (:func:`driftscreen.seeds.dataset_stream`) and chunk sizes depend on the design only, so a
@@ -17,7 +20,8 @@ dataset's results do not depend on the number of jobs, the backend, or on which 
 datasets are screened with it. Only its q-values do, by the nature of FDR control.
 An exception while planning, simulating or assembling one dataset becomes that dataset's
 note; the other datasets go on. Only analysed datasets are saved in the store, so a later
-run tries failed ones again.
+run tries failed ones again. A stored dataset that still lacks its influential sample (the
+run stopped during step 5) gets it on the next run; one that has it is not redone.
 """
 
 from __future__ import annotations
@@ -25,7 +29,7 @@ from __future__ import annotations
 import contextlib
 import time
 from collections.abc import Iterator, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any, TextIO
 
 import numpy as np
@@ -37,8 +41,10 @@ from driftscreen.calibrate import (COMBINED, CalibrationPlan, CalibrationSetting
 from driftscreen.dataset import Dataset
 from driftscreen.errors import InputError
 from driftscreen.fdr import qvalues_by_statistic
+from driftscreen.influence import (LEVEL, NOTE_PREFIX, InfluencePlan, finish_influence,
+                                   plan_influence, wants_influence)
 from driftscreen.report.text import duration_text
-from driftscreen.results import DatasetSummary, NeutralityResult
+from driftscreen.results import DatasetSummary, NeutralityResult, SampleInfluence
 from driftscreen.serialize import (result_from_dict, result_to_dict, summary_from_dict,
                                    summary_to_dict)
 from driftscreen.statistics.registry import STATISTIC_NAMES, default_statistics
@@ -216,9 +222,9 @@ class Progress:
     ``every`` seconds, and always for the last dataset. ``stream=None`` writes nothing.
     """
 
-    def __init__(self, total: int, stream: TextIO | None, every: float = PROGRESS_EVERY
-                 ) -> None:
-        self.total, self.stream, self.every = total, stream, every
+    def __init__(self, total: int, stream: TextIO | None, every: float = PROGRESS_EVERY,
+                 noun: str = "datasets") -> None:
+        self.total, self.stream, self.every, self.noun = total, stream, every, noun
         self.done = 0
         self.work = self.work_done = 0.0
         self.start = self.work_start = time.monotonic()
@@ -232,11 +238,13 @@ class Progress:
         """Datasets that need no work (reused or not analysable): counted, no line."""
         self.done += n_datasets
 
-    def planned(self, n_datasets: int, n_chunks: int, work: float) -> None:
-        """The replicate work is laid out; the time estimate starts now."""
+    def planned(self, n_datasets: int, n_chunks: int, work: float, stage: str = "fitted"
+                ) -> None:
+        """The replicate work is laid out (``stage``: what was done to plan it); the time
+        estimate starts now."""
         self.work, self.work_start = work, time.monotonic()
         if n_chunks:
-            self.write(f"fitted {n_datasets} datasets in "
+            self.write(f"{stage} {n_datasets} datasets in "
                        f"{duration_text(self.work_start - self.start)}; running {n_chunks} "
                        "chunks of neutral replicates")
 
@@ -249,7 +257,7 @@ class Progress:
         if now - self.last_line < self.every and self.done < self.total:
             return
         self.last_line = now
-        line = (f"{self.done}/{self.total} datasets done, "
+        line = (f"{self.done}/{self.total} {self.noun} done, "
                 f"{duration_text(now - self.start)} elapsed")
         if self.done < self.total and 0 < self.work_done < self.work:
             left = (now - self.work_start) * (self.work - self.work_done) / self.work_done
@@ -264,7 +272,8 @@ def chunk_work(task: ChunkTask) -> float:
 
 # ----------------------------------------------------------------------------- the screen
 def screen(datasets: Sequence[Dataset], settings: CalibrationSettings, *, jobs: int = 1,
-           store: ResultStore | None = None, messages: TextIO | None = None) -> ScreenResult:
+           store: ResultStore | None = None, messages: TextIO | None = None,
+           influence: bool = True) -> ScreenResult:
     """Calibrate every dataset, reusing finished ones, and adjust p-values for FDR.
 
     Parameters
@@ -281,6 +290,10 @@ def screen(datasets: Sequence[Dataset], settings: CalibrationSettings, *, jobs: 
         Where finished datasets are saved and found again; ``None`` keeps nothing.
     messages:
         Stream for the reuse notice and progress lines; ``None`` is silent.
+    influence:
+        Name the most influential sample of every dataset whose combined p-value (before
+        FDR adjustment) is at most 0.05, with its p-values without that sample
+        (:mod:`driftscreen.influence`).
 
     Returns
     -------
@@ -306,6 +319,8 @@ def screen(datasets: Sequence[Dataset], settings: CalibrationSettings, *, jobs: 
         progress.write(f"reusing {len(reused)} finished {noun} from {store.out}")
     progress.counted(len(outcomes))
     outcomes.update(calibrate_pending(pending, settings, jobs, store, progress))
+    if influence:
+        outcomes.update(influence_pending(datasets, outcomes, settings, jobs, store, messages))
     ordered = tuple(outcomes[name] for name in names)
     not_analysed = sum(not o.analysed for o in ordered)
     if not_analysed:
@@ -329,8 +344,24 @@ def calibrate_pending(datasets: Sequence[Dataset], settings: CalibrationSettings
             progress.dataset_finished()
         else:
             plans.append(plan)
+    progress.planned(len(datasets), sum(len(plan.tasks) for plan in plans), plans_work(plans))
+    for index, outputs in finished_plans(plans, jobs, progress):
+        plan = plans[index]
+        outcomes[plan.dataset.name] = keep(assemble_safely(plan, outputs), store)
+        progress.dataset_finished()
+    return outcomes
+
+
+def plans_work(plans: Sequence[CalibrationPlan]) -> float:
+    """Relative cost of the replicate chunks of ``plans``."""
+    return sum(chunk_work(task) for plan in plans for task in plan.tasks)
+
+
+def finished_plans(plans: Sequence[CalibrationPlan], jobs: int, progress: Progress
+                   ) -> Iterator[tuple[int, list[ChunkOutput | Failure]]]:
+    """Run every chunk of ``plans`` through one Parallel generator; yield (plan index, its
+    outputs in chunk order) as soon as a plan's last chunk is back."""
     work = [(index, task) for index, plan in enumerate(plans) for task in plan.tasks]
-    progress.planned(len(datasets), len(work), sum(chunk_work(task) for _, task in work))
     remaining = [len(plan.tasks) for plan in plans]
     collected: list[list[ChunkOutput | Failure]] = [[] for _ in plans]
     results = Parallel(n_jobs=jobs, return_as="generator")(
@@ -340,11 +371,86 @@ def calibrate_pending(datasets: Sequence[Dataset], settings: CalibrationSettings
         remaining[index] -= 1
         progress.chunk_finished(chunk_work(task))
         if remaining[index] == 0:
-            plan = plans[index]
-            outcomes[plan.dataset.name] = keep(assemble_safely(plan, collected[index]), store)
+            yield index, collected[index]
             collected[index] = []
+
+
+# ----------------------------------------------------------------------------- influence
+def plan_influence_safely(dataset: Dataset, result: NeutralityResult,
+                          settings: CalibrationSettings) -> InfluencePlan | str | Failure:
+    """:func:`driftscreen.influence.plan_influence`, with any exception made a Failure."""
+    try:
+        return plan_influence(dataset, result, settings)
+    except Exception as error:  # noqa: BLE001 - one dataset's failure must not stop the screen
+        return Failure.from_exception("ranking the samples", error)
+
+
+def finish_influence_safely(plan: InfluencePlan, result: NeutralityResult,
+                            outputs: list[ChunkOutput | Failure]) -> SampleInfluence | Failure:
+    """:func:`driftscreen.influence.finish_influence`; a failed chunk or exception is a
+    Failure."""
+    failures = [out for out in outputs if isinstance(out, Failure)]
+    if failures:
+        return failures[0]
+    try:
+        return finish_influence(plan, result,
+                                [out for out in outputs if isinstance(out, ChunkOutput)])
+    except Exception as error:  # noqa: BLE001 - one dataset's failure must not stop the screen
+        return Failure.from_exception("calibration without the sample", error)
+
+
+def outcome_with_influence(outcome: DatasetOutcome, found: SampleInfluence | str | Failure,
+                   store: ResultStore | None) -> DatasetOutcome:
+    """``outcome`` with its influential sample, or with the note on why it has none.
+
+    Influences and notes that no sample can be left out are saved with the record; a
+    failure is not, so that a later run tries again (as for failed datasets).
+    """
+    result = outcome.result
+    if isinstance(found, Failure):
+        note = f"{NOTE_PREFIX} not determined ({found.message})"
+        return replace(outcome, result=replace(result, notes=tuple(result.notes) + (note,)))
+    if isinstance(found, str):
+        return keep(replace(outcome, result=replace(result, notes=tuple(result.notes)
+                                                    + (found,))), store)
+    return keep(replace(outcome, result=replace(result, influence=found)), store)
+
+
+def influence_pending(datasets: Sequence[Dataset], outcomes: Mapping[str, DatasetOutcome],
+                      settings: CalibrationSettings, jobs: int, store: ResultStore | None,
+                      messages: TextIO | None) -> dict[str, DatasetOutcome]:
+    """The most influential sample of every analysed dataset with combined p <= 0.05 that
+    lacks one: rank in parallel, then run all tests without the chosen samples through one
+    Parallel generator, saving each dataset again as soon as its test is done."""
+    pending = [(dataset, outcomes[dataset.name]) for dataset in datasets
+               if outcomes[dataset.name].result is not None
+               and wants_influence(outcomes[dataset.name].result)]
+    if not pending:
+        return {}
+    progress = Progress(len(pending), messages, noun="tests without the most influential sample")
+    noun = "dataset" if len(pending) == 1 else "datasets"
+    progress.write(f"{len(pending)} {noun} with combined p <= {LEVEL:g}: finding the sample "
+                   "each rests on most")
+    planned = Parallel(n_jobs=jobs)(delayed(plan_influence_safely)(dataset, outcome.result,
+                                                                   settings)
+                                    for dataset, outcome in pending)
+    updated: dict[str, DatasetOutcome] = {}
+    chosen: list[tuple[DatasetOutcome, InfluencePlan]] = []
+    for (_, outcome), plan in zip(pending, planned, strict=True):
+        if isinstance(plan, InfluencePlan):
+            chosen.append((outcome, plan))
+        else:
+            updated[outcome.name] = outcome_with_influence(outcome, plan, store)
             progress.dataset_finished()
-    return outcomes
+    plans = [plan.plan for _, plan in chosen]
+    progress.planned(len(plans), sum(len(plan.tasks) for plan in plans), plans_work(plans),
+                     stage="ranked the samples of")
+    for index, outputs in finished_plans(plans, jobs, progress):
+        outcome, plan = chosen[index]
+        found = finish_influence_safely(plan, outcome.result, outputs)
+        updated[outcome.name] = outcome_with_influence(outcome, found, store)
+        progress.dataset_finished()
+    return updated
 
 
 def keep(outcome: DatasetOutcome, store: ResultStore | None) -> DatasetOutcome:

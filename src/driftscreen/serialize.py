@@ -6,6 +6,8 @@ metacommunity composition ``p``, which :class:`NeutralModel` renormalises: last-
 at most). JSON has no NaN or infinity: NaN becomes ``null`` and the infinities the strings
 ``"inf"`` and ``"-inf"``. Diagnostic tables are stored column by column with each column's
 type (``float``, ``int``, ``bool`` or ``text``), so they read back with the same dtypes.
+A result's most influential sample is ``null`` when there is none (and in records written
+before results carried one).
 """
 
 from __future__ import annotations
@@ -19,7 +21,7 @@ import pandas as pd
 
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
-                                 StatisticResult)
+                                 SampleInfluence, StatisticResult)
 
 INFINITIES = {"inf": math.inf, "-inf": -math.inf}
 
@@ -109,6 +111,25 @@ def statistic_from_dict(data: Mapping[str, Any]) -> StatisticResult:
                            data["note"])
 
 
+def influence_to_dict(influence: SampleInfluence | None) -> dict[str, Any] | None:
+    if influence is None:
+        return None
+    return {"sample": influence.sample, "index": influence.index,
+            "score": float_to_json(influence.score), "pvalue": float_to_json(influence.pvalue),
+            "pvalues": {name: float_to_json(p) for name, p in influence.pvalues.items()},
+            "verdict_changes": influence.verdict_changes}
+
+
+def influence_from_dict(data: Mapping[str, Any] | None) -> SampleInfluence | None:
+    if data is None:
+        return None
+    return SampleInfluence(
+        sample=data["sample"], index=int(data["index"]), score=float_from_json(data["score"]),
+        pvalue=float_from_json(data["pvalue"]),
+        pvalues={name: float_from_json(p) for name, p in data["pvalues"].items()},
+        verdict_changes=bool(data["verdict_changes"]))
+
+
 def column_type(column: pd.Series) -> str:
     """``"bool"``, ``"int"``, ``"float"`` or ``"text"``: how a table column is stored."""
     if pd.api.types.is_bool_dtype(column):
@@ -166,13 +187,15 @@ def result_to_dict(result: NeutralityResult) -> dict[str, Any]:
         "replicates": result.replicates, "seed": result.seed, "notes": list(result.notes),
         "diagnostics": {name: table_to_dict(table)
                         for name, table in result.diagnostics.items()},
+        "influence": influence_to_dict(result.influence),
     }
 
 
 def result_from_dict(data: Mapping[str, Any]) -> NeutralityResult:
     """Inverse of :func:`result_to_dict` (statistics and parameters keep their order).
 
-    Records written before results carried diagnostics read back with none.
+    Records written before results carried diagnostics or an influential sample read
+    back with none.
     """
     statistics = [statistic_from_dict(s) for s in data["statistics"]]
     parameters = [parameter_from_dict(p) for p in data["parameters"]]
@@ -182,4 +205,4 @@ def result_from_dict(data: Mapping[str, Any]) -> NeutralityResult:
         dataset=summary_from_dict(data["dataset"]), model=model_from_dict(data["model"]),
         statistics={s.name: s for s in statistics}, parameters={p.name: p for p in parameters},
         replicates=int(data["replicates"]), seed=int(data["seed"]), notes=tuple(data["notes"]),
-        diagnostics=diagnostics)
+        diagnostics=diagnostics, influence=influence_from_dict(data.get("influence")))

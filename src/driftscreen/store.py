@@ -9,8 +9,11 @@ Every file is written through a temporary file and a rename
 (:func:`driftscreen.files.atomic_write_text`), so a killed run leaves either a whole record
 or none. The fingerprint holds everything that changes results: the driftscreen version,
 the SHA-256 of every input file, the intake options, replicates, groupings, seed and the
-configured statistics. A run with the same fingerprint reuses every finished record; a run
-with another fingerprint is refused, naming what differs.
+configured statistics (the commands add the options of their follow-ups: ``detectable``
+when on, ``influence`` when off). A run with the same fingerprint reuses every finished
+record; a run with another fingerprint is refused, naming what differs. A record holds the
+dataset's result with its follow-ups (e.g. its most influential sample), so a resumed run
+does not redo them.
 """
 
 from __future__ import annotations
@@ -88,6 +91,8 @@ def describe(key: str, value: Any) -> str:
         return "file content " + (value["sha256"][:12] if isinstance(value, dict) else "absent")
     if key == "statistics":
         return "; ".join(value) if isinstance(value, list) else repr(value)
+    if key == "influence":
+        return "on" if value is None else f"{value} (--no-influence)"
     return "none" if value is None else str(value)
 
 
@@ -99,6 +104,8 @@ def label(key: str) -> str:
         return "--" + key.split(".", 1)[1].replace("_", "-")
     if key in ("replicates", "groupings", "seed"):
         return f"--{key}"
+    if key == "influence":
+        return "most influential samples"
     return key.replace("_", " ")
 
 

@@ -4,7 +4,10 @@ Everything here is deterministic: the same results give the same bytes, whatever
 number of jobs and whether a run was resumed. TSV numbers are printed with ``%.6g``
 (empty cell when missing); JSON numbers are exact (``repr``), with ``null`` when missing.
 Each dataset's diagnostic tables appear in ``results.json`` column by column, with each
-column's type (:func:`driftscreen.serialize.table_to_dict`).
+column's type (:func:`driftscreen.serialize.table_to_dict`). For a dataset with combined
+p <= 0.05, ``influential_sample`` in ``results.tsv`` names its most influential sample and
+``p_value_without_sample`` is each statistic's p-value without it (the combined one in
+the ``combined`` row); both are empty for the other datasets.
 """
 
 from __future__ import annotations
@@ -14,13 +17,16 @@ import math
 from collections.abc import Mapping, Sequence
 from typing import Any
 
+from driftscreen.results import NeutralityResult
 from driftscreen.screen import DatasetOutcome, ScreenResult
-from driftscreen.serialize import (float_to_json, floats_to_json, summary_to_dict,
-                                   table_to_dict)
+from driftscreen.calibrate import COMBINED
+from driftscreen.serialize import (float_to_json, floats_to_json, influence_to_dict,
+                                   summary_to_dict, table_to_dict)
 
 RESULTS_COLUMNS = ("dataset", "statistic", "alternative", "observed", "null_mean", "null_sd",
                    "null_median", "effect_size", "ratio_to_median", "p_value", "q_value",
-                   "n_samples", "n_taxa", "replicates", "note")
+                   "n_samples", "n_taxa", "replicates", "influential_sample",
+                   "p_value_without_sample", "note")
 PARAMETERS_COLUMNS = ("dataset", "design", "theta", "theta_low", "theta_high", "rate_per_day",
                       "rate_low", "rate_high", "n_taxa", "n_taxa_dropped", "n_samples",
                       "depth_min", "depth_median", "depth_max", "span_days", "flags", "note")
@@ -52,13 +58,23 @@ def statistic_rows(outcome: DatasetOutcome, index: int, run: ScreenResult) -> li
         head = [summary.name, name]
         size = [summary.n_samples, summary.n_taxa]
         if result is None:
-            rows.append(head + [None] * 9 + size + [None, outcome.note])
+            rows.append(head + [None] * 9 + size + [None, None, None, outcome.note])
             continue
         s = result.statistics[name]
         rows.append(head + [s.alternative, s.statistic, s.null_mean, s.null_sd, s.null_median,
                             s.effect_size, s.ratio_to_median, s.pvalue,
-                            run.qvalue(index, name)] + size + [result.replicates, s.note])
+                            run.qvalue(index, name)] + size + [result.replicates]
+                    + without_sample_cells(result, name) + [s.note])
     return rows
+
+
+def without_sample_cells(result: NeutralityResult, name: str) -> list[object]:
+    """The most influential sample and statistic ``name``'s p-value without it (or empty)."""
+    influence = result.influence
+    if influence is None:
+        return [None, None]
+    pvalue = influence.pvalue if name == COMBINED else influence.pvalues.get(name)
+    return [influence.sample, pvalue]
 
 
 def results_tsv(run: ScreenResult) -> str:
@@ -117,6 +133,7 @@ def dataset_record(outcome: DatasetOutcome, index: int, run: ScreenResult) -> di
                             for name in result.statistics]
     record["diagnostics"] = {name: table_to_dict(table)
                              for name, table in result.diagnostics.items()}
+    record["influence"] = influence_to_dict(result.influence)
     return record
 
 

@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from driftscreen import __version__
+from driftscreen.influence import CANDIDATES, LEVEL
 from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
                                  StatisticResult)
 
@@ -112,6 +113,30 @@ def verdict(result: NeutralityResult, alpha: float = ALPHA) -> str:
     return (f"Neutrality not rejected at alpha = {alpha:g} (combined p = {p_text}); "
             "this is not evidence for neutrality unless the design had power to detect "
             "the niche structure of interest.")
+
+
+def influence_line(result: NeutralityResult) -> str:
+    """The most influential sample, its outlyingness and the combined p-value without it."""
+    influence = result.influence
+    if influence is None:
+        return ""
+    change = ("verdict changes: not rejected without it" if influence.verdict_changes
+              else "verdict unchanged")
+    return (f"Most influential sample: {influence.sample} (outlyingness "
+            f"{number(influence.score, 3)}); combined p without it "
+            f"{pvalue_text(influence.pvalue, result.replicates)} ({change}).")
+
+
+def influence_legend(screen: bool = False) -> str:
+    """How the most influential sample is found; a screen's rule says p, not q."""
+    rule = f"combined p{', not q,' if screen else ''} <= {LEVEL:g}"
+    return (f"Most influential sample (datasets with {rule}): of the {CANDIDATES} samples "
+            "furthest from the fitted null (outlyingness: squared deviation of the sample's "
+            "relative abundances from the fitted composition and, for a time series, of its "
+            "changes from its neighbours, over the neutral variance and averaged over taxa; "
+            "about 1 for a neutral sample), the one whose removal leaves the weakest "
+            "evidence; the dataset is tested again without it with the same settings, and "
+            f"the verdict is judged at alpha = {LEVEL:g}.")
 
 
 def summary_pairs(d: DatasetSummary) -> list[tuple[str, str]]:
@@ -341,6 +366,8 @@ def dataset_section(result: NeutralityResult, legend: bool = True) -> list[str]:
         ["statistic", "observed", "null mean", "null sd", "effect", "obs/med", "p-value"],
         statistic_rows(result.statistics, result.replicates)) + [""]
     lines += wrap(verdict(result))
+    if result.influence is not None:
+        lines += wrap(influence_line(result))
     diagnostics = diagnostics_lines(result, legend)
     if diagnostics:
         lines += [""] + diagnostics
@@ -357,11 +384,13 @@ def dataset_report(result: NeutralityResult) -> str:
     """The plain-text report of :meth:`NeutralityResult.summary`."""
     title = f"driftscreen {__version__}: neutrality test of dataset '{result.dataset.name}'"
     lines = heading(title, "=") + dataset_section(result)
-    lines += [""] + heading("Reading this report") + wrap(
-        "effect = (observed - null mean) / null sd; obs/med = observed over the median of "
-        "the neutral replicates; p-values are parametric-bootstrap p-values from neutral "
-        "communities simulated with this dataset's taxa, times and depths, re-fitted on "
-        "every replicate.")
+    reading = ("effect = (observed - null mean) / null sd; obs/med = observed over the median "
+               "of the neutral replicates; p-values are parametric-bootstrap p-values from "
+               "neutral communities simulated with this dataset's taxa, times and depths, "
+               "re-fitted on every replicate.")
+    if result.influence is not None:
+        reading += " " + influence_legend()
+    lines += [""] + heading("Reading this report") + wrap(reading)
     return "\n".join(lines) + "\n"
 
 
@@ -385,6 +414,17 @@ STATISTIC_METHODS = {
         "the likelihood ratio of taxon-specific against common beta-binomial dispersion, "
         "with each taxon's mean profiled, per taxon and corrected for autocorrelation",
 }
+
+
+#: How the most influential samples were found, for the methods paragraph.
+INFLUENCE_METHODS = (
+    f"For each dataset with a combined p-value of at most {LEVEL:g}, the {CANDIDATES} samples "
+    "furthest from the fitted null (mean over taxa of the squared standardised deviation of "
+    "their relative abundances and, for time series, of their changes from neighbouring "
+    "samples) were each left out in turn; the one whose removal left the weakest evidence "
+    "(harmonic mean of the normal-tail p-values of its statistics against the full-data "
+    "null distributions) was taken as the most influential sample, and the dataset was "
+    "tested again without it with the same settings. ")
 
 
 def duration_text(seconds: float) -> str:
@@ -504,17 +544,23 @@ def summary_table(run: ScreenResult) -> list[str]:
     return table(headers, rows, "rlrrrrrrl")
 
 
+def any_influence(run: ScreenResult) -> bool:
+    return any(o.result is not None and o.result.influence is not None for o in run.outcomes)
+
+
 def summary_lines(run: ScreenResult) -> list[str]:
     tested = n_tested(run)
     lines = heading("Summary, sorted by combined q-value") + summary_table(run) + [""]
-    lines += wrap(f"p: combined p-value of the dataset (Cauchy combination of its statistics, "
-                  f"calibrated on the neutral replicates); q: its Benjamini-Hochberg q-value "
-                  f"across the {tested} tested datasets; verdict: neutrality rejected when "
-                  f"q <= {ALPHA:g}. theta: immigration parameter; rate: relaxation rate per "
-                  f"day (time series only). # refers to the dataset sections below, where "
-                  "effect = (observed - null mean) / null sd and obs/med = observed over the "
-                  "median of the neutral replicates.")
-    return lines
+    legend = (f"p: combined p-value of the dataset (Cauchy combination of its statistics, "
+              f"calibrated on the neutral replicates); q: its Benjamini-Hochberg q-value "
+              f"across the {tested} tested datasets; verdict: neutrality rejected when "
+              f"q <= {ALPHA:g}. theta: immigration parameter; rate: relaxation rate per "
+              f"day (time series only). # refers to the dataset sections below, where "
+              "effect = (observed - null mean) / null sd and obs/med = observed over the "
+              "median of the neutral replicates.")
+    if any_influence(run):
+        legend += " " + influence_legend(screen=True)
+    return lines + wrap(legend)
 
 
 def sentence(text: str) -> str:
@@ -588,8 +634,9 @@ def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
         "combined by the Cauchy combination test (Liu & Xie 2020, J. Am. Stat. Assoc. "
         "115:393), calibrated against the replicates' leave-one-out p-values, and q-values "
         "were computed per statistic across datasets by the Benjamini-Hochberg procedure "
-        "(Benjamini & Hochberg 1995, J. R. Stat. Soc. B 57:289). Analyses used driftscreen "
-        f"{version} with master random seed {settings.seed}.")
+        "(Benjamini & Hochberg 1995, J. R. Stat. Soc. B 57:289). "
+        + (INFLUENCE_METHODS if any_influence(run) else "")
+        + f"Analyses used driftscreen {version} with master random seed {settings.seed}.")
     if left_out:
         text += (f" {left_out} further {'dataset' if left_out == 1 else 'datasets'} could "
                  "not be analysed (too few samples or taxa, or a failed fit; see the "

@@ -404,7 +404,7 @@ STATISTIC_METHODS = {
     "regrouping_invariance":
         "the variance, over R = {groupings} random groupings of taxa, of the log volatility "
         "of the groups' angular-transformed abundances (the grouping invariance of neutral "
-        "drift, after Washburne et al. 2016, PLoS Comput. Biol. 12:e1004819; angular "
+        "drift, after Washburne et al. 2016, PLoS Comput. Biol. 12:e1005124; angular "
         "transform of Anscombe 1948, Biometrika 35:246)",
     "fluctuation_scaling":
         "the exponent of Taylor's law between the sampling-corrected variance and the mean "

@@ -2,9 +2,11 @@
 
 External references: the haploid Wright-Fisher model with immigration and its
 diffusion limit theta = 2 N m, tau = generations / N (Ewens 2004, Mathematical
-Population Genetics I, from memory), multinomial sampling moments, and scipy.stats
-two-sample Kolmogorov-Smirnov. Monte Carlo comparisons use fixed seeds and two-sample
-z-scores bounded by 4.5 (standard errors from the samples themselves).
+Population Genetics I, from memory), multinomial sampling moments, the
+Dirichlet-multinomial moments (Mosimann 1962, Biometrika 49:65, and
+scipy.stats.dirichlet_multinomial), and scipy.stats two-sample Kolmogorov-Smirnov.
+Monte Carlo comparisons use fixed seeds and two-sample z-scores bounded by 4.5
+(standard errors from the samples themselves).
 """
 
 from __future__ import annotations
@@ -18,7 +20,12 @@ from scipy import stats
 from driftscreen.dataset import Design
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import simulate
-from driftscreen.neutral.wright_fisher import simulate_wright_fisher, wright_fisher_for
+from driftscreen.neutral.wright_fisher import (
+    dirichlet_multinomial_reads,
+    simulate_wright_fisher,
+    wright_fisher_compositions,
+    wright_fisher_for,
+)
 
 Z_BOUND = 4.5
 P3 = np.array([0.5, 0.3, 0.2])
@@ -157,3 +164,95 @@ def test_start_composition_and_shapes():
     with pytest.raises(ValueError):
         simulate_wright_fisher(P3, 100, 0.1, np.array([3, 1]), np.array([10, 10]), 2,
                                np.random.default_rng(0))
+
+
+def dirichlet_multinomial_z_scores(counts: np.ndarray, depth: int, x: np.ndarray,
+                                   precision: float) -> list[float]:
+    """z of counts' means, variances and the (0, 1) covariance against DM(depth, C x).
+
+    Source: Mosimann 1962 (Biometrika 49:65): E N_i = n x_i, Var N_i = n x_i (1 - x_i)
+    (n + C) / (1 + C), Cov(N_i, N_j) = -n x_i x_j (n + C) / (1 + C); the same values come
+    from scipy.stats.dirichlet_multinomial (checked in the test below).
+    """
+    inflation = 1.0 if np.isinf(precision) else (depth + precision) / (1.0 + precision)
+    scores = []
+    for i in range(x.size):
+        mean = mean_and_se(counts[:, i])
+        scores.append((mean[0] - depth * x[i]) / mean[1])
+        var = variance_and_se(counts[:, i])
+        scores.append((var[0] - depth * x[i] * (1 - x[i]) * inflation) / var[1])
+    cov = covariance_and_se(counts[:, 0], counts[:, 1])
+    scores.append((cov[0] + depth * x[0] * x[1] * inflation) / cov[1])
+    return scores
+
+
+def test_dirichlet_multinomial_reads_have_mosimann_moments():
+    depth, precision = 200, 50.0
+    counts = simulate_wright_fisher(P3, 1000, 0.1, np.array([0]), np.array([depth]), 100_000,
+                                    np.random.default_rng(37), start=P3,
+                                    read_precision=precision)[:, 0]
+    inflation = (depth + precision) / (1 + precision)  # the formulas above agree with scipy's
+    np.testing.assert_allclose(stats.dirichlet_multinomial.var(precision * P3, depth),
+                               depth * P3 * (1 - P3) * inflation)
+    np.testing.assert_allclose(stats.dirichlet_multinomial.cov(precision * P3, depth)[0, 1],
+                               -depth * P3[0] * P3[1] * inflation)
+    assert max(abs(z) for z in dirichlet_multinomial_z_scores(counts, depth, P3,
+                                                              precision)) < Z_BOUND
+    # the check can fail: the same reads are far from multinomial or from C = 100
+    for wrong in (np.inf, 100.0):
+        scores = dirichlet_multinomial_z_scores(counts, depth, P3, wrong)
+        assert max(abs(z) for z in scores) > Z_BOUND
+
+
+def test_dirichlet_multinomial_reads_broadcast_depths_and_keep_zeros():
+    composition = np.array([[0.5, 0.5, 0.0], [0.0, 0.2, 0.8]])
+    counts = dirichlet_multinomial_reads(np.broadcast_to(composition, (4, 2, 3)),
+                                         np.array([10, 30]), 20.0, np.random.default_rng(38))
+    assert counts.shape == (4, 2, 3) and counts.dtype == np.int64
+    np.testing.assert_array_equal(counts.sum(axis=2), np.tile([10, 30], (4, 1)))
+    assert np.all(counts[:, 0, 2] == 0) and np.all(counts[:, 1, 0] == 0)
+    with pytest.raises(ValueError):
+        dirichlet_multinomial_reads(composition, 10, 0.0, np.random.default_rng(0))
+
+
+def test_disturbance_acts_just_before_the_first_sample():
+    # Source: one generation maps E[x] to (1 - m) E[x] + m p (the mean of the multinomial
+    # offspring law), so g generations after x0 the mean is p + (1 - m)^g (x0 - p).
+    population, immigration = 200, 0.2
+    seen = []
+
+    def to_fixed(composition: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+        seen.append(composition.copy())
+        return np.broadcast_to([0.1, 0.1, 0.8], composition.shape)
+
+    start, disturbed = np.array([1.0, 0.0, 0.0]), np.array([0.1, 0.1, 0.8])
+    compositions = wright_fisher_compositions(P3, population, immigration,
+                                              np.array([5, 6, 10]), 20_000,
+                                              np.random.default_rng(39), start=start,
+                                              disturb=to_fixed)
+    assert compositions.shape == (20_000, 3, 3) and len(seen) == 1
+    np.testing.assert_array_equal(compositions[:, 0], np.broadcast_to(disturbed, (20_000, 3)))
+    for generations, before, values in ((5, start, seen[0]), (1, disturbed, compositions[:, 1]),
+                                        (5, disturbed, compositions[:, 2])):
+        expected = P3 + (1 - immigration) ** generations * (before - P3)
+        for i in range(3):
+            mean, se = mean_and_se(values[:, i])
+            assert abs(mean - expected[i]) < Z_BOUND * se
+    np.testing.assert_allclose(compositions * population, np.rint(compositions * population),
+                               atol=1e-9)  # whole individuals
+
+
+def test_disturbance_output_is_checked():
+    def negative(composition: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+        return composition - 1.0
+
+    def wrong_shape(composition: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+        return composition[:, :2]
+
+    for disturb in (negative, wrong_shape):
+        with pytest.raises(ValueError):
+            simulate_wright_fisher(P3, 100, 0.1, np.array([0, 3]), np.array([10, 10]), 2,
+                                   np.random.default_rng(0), disturb=disturb)
+    with pytest.raises(ValueError):
+        simulate_wright_fisher(P3, 100, 0.1, np.array([0, 3]), np.array([10, 10]), 2,
+                               np.random.default_rng(0), read_precision=-1.0)

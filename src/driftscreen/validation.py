@@ -2,18 +2,33 @@
 
 A neutrality test that rejects neutral data too often, or never rejects niche data, is worse
 than none. This module simulates collections of datasets with known truth and runs the full
-calibrated test on every one of them:
+calibrated test on every one of them. Neutral collections:
 
-- **neutral** datasets over a grid of designs (15 to 150 taxa, 30 to 300 samples, fixed and
-  varying depth, regular and irregular intervals, strong and weak immigration, fast and slow
-  dynamics, snapshots), drawn from the exact simulator and from the plain discrete-generation
-  Wright-Fisher simulator;
-- **niche** datasets from the stochastic logistic model (Grilli 2020) and the noisy generalised
-  Lotka-Volterra model, with 40 taxa, 100 daily samples and depth 10^4.
+- **stationary**: a grid of designs (15 to 150 taxa, 30 to 300 samples, fixed and varying
+  depth, regular and irregular intervals, strong and weak immigration, fast and slow
+  dynamics, snapshots) started at stationarity and sequenced multinomially, drawn from the
+  exact simulator and from the discrete Wright-Fisher simulator;
+- **disturbed**: discrete Wright-Fisher communities disturbed just before the first sample
+  (the three most abundant taxa cut to a tenth or a third, one random taxon blooming to 30%
+  or 50% of the community, or a colonisation-like start from a stationary draw around
+  another composition), relaxing towards the metacommunity while they are sampled;
+- **noise100**, **noise300**, **noise1000**: stationary Wright-Fisher communities with
+  Dirichlet-multinomial reads at precision C = 100, 300, 1000 (technical noise);
+- **lognormal-noise**: stationary Wright-Fisher communities whose composition is multiplied
+  by independent log-normal noise per taxon and sample (log-sd 0.2 to 0.5) before
+  multinomial sequencing (a second form of technical noise; a smaller collection);
+- **short**: stationary Wright-Fisher series of 10 to 25 daily or irregular samples.
 
-It reports, per statistic, the rejection rate at a level alpha with a Wilson 95% interval
-(Wilson 1927, JASA 22:209). Run the whole study with ``python -m driftscreen.validation``
-(see ``--help``); a small version runs in the test suite.
+Every Wright-Fisher community of the new collections has 10^4 to 10^6 individuals, theta =
+2 N m from 10 to 1000 and relaxation rate lambda = m x (generations per day) from 0.05 to 1
+per day, 10 to 200 generations per day; 15 to 100 taxa, depths 2,000 to 20,000 with and
+without a spread. Niche collections (power): the stochastic logistic model (Grilli 2020) and
+the noisy generalised Lotka-Volterra model, 40 taxa, 100 daily samples, depth 10^4, with
+multinomial reads and with Dirichlet-multinomial reads at C = 300.
+
+It reports, per statistic and collection, the rejection rate at a level alpha with a Wilson
+95% interval (Wilson 1927, JASA 22:209). Run the whole study with
+``python -m driftscreen.validation`` (see ``--help``); a small version runs in the test suite.
 """
 
 from __future__ import annotations
@@ -22,8 +37,9 @@ import argparse
 import itertools
 import sys
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import asdict, dataclass
+from functools import partial
 
 import numpy as np
 import pandas as pd
@@ -32,21 +48,51 @@ from scipy.stats import binomtest
 
 from driftscreen import __version__, seeds
 from driftscreen.calibrate import correlation_times, neutrality_test
+from driftscreen.cli import Parser
 from driftscreen.dataset import Dataset, Design
 from driftscreen.files import atomic_write_text
+from driftscreen.neutral.dirichlet import dirichlet_rows
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import simulate
-from driftscreen.neutral.wright_fisher import simulate_wright_fisher, wright_fisher_for
+from driftscreen.neutral.wright_fisher import (
+    Disturbance,
+    dirichlet_multinomial_reads,
+    simulate_wright_fisher,
+    wright_fisher_compositions,
+    wright_fisher_for,
+)
 from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic
 from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
 
-#: Individuals in the discrete Wright-Fisher community (at least).
+#: Individuals in the stationary collection's discrete Wright-Fisher community (at least).
 WRIGHT_FISHER_SIZE = 2000
-#: Generations in the shortest sampling interval (at least): sampling times are rounded to
-#: whole generations, so fewer would jitter the times the test is told about.
+#: Generations in the shortest sampling interval of the stationary collection (at least):
+#: its sampling times are rounded to whole generations, so fewer would jitter the times
+#: the test is told about.
 WRIGHT_FISHER_GENERATIONS = 50
 #: Largest Wright-Fisher community the study will simulate.
 WRIGHT_FISHER_MAX_SIZE = 1_000_000
+#: Smallest Wright-Fisher community of the new collections (the diffusion's domain).
+MIN_POPULATION = 10_000
+#: Generations per day of the new collections' communities: at least this many, so that
+#: sampling times on the generation grid stay close to the drawn design...
+MIN_GENERATIONS_PER_DAY = 10.0
+#: ... and at most this many, which with at most MAX_GENERATIONS keeps a dataset's
+#: simulation under about a second (one generation costs 15-30 microseconds for 100 taxa).
+MAX_GENERATIONS_PER_DAY = 200.0
+MAX_GENERATIONS = 100_000
+
+NEUTRAL_GENERATORS = ("exact", "wright-fisher")
+NICHE_GENERATORS = ("logistic", "lotka-volterra")
+NOISE_PRECISIONS = {"noise100": 100.0, "noise300": 300.0, "noise1000": 1000.0}
+NICHE_NOISE_PRECISION = 300.0
+NEUTRAL_COLLECTIONS = ("stationary", "disturbed", *NOISE_PRECISIONS, "lognormal-noise",
+                       "short")
+NICHE_COLLECTIONS = ("logistic", "lotka-volterra", "logistic-noise300",
+                     "lotka-volterra-noise300")
+COLLECTIONS = NEUTRAL_COLLECTIONS + NICHE_COLLECTIONS
+#: Relative size of the lognormal-noise collection (a second, optional noise form).
+LOGNORMAL_SHARE = 0.5
 
 
 @dataclass(frozen=True)
@@ -55,7 +101,17 @@ class Scenario:
 
     ``generator`` is ``"exact"`` or ``"wright-fisher"`` (neutral), or ``"logistic"`` or
     ``"lotka-volterra"`` (niche, with the models' default parameters). ``interval`` None
-    makes a snapshot design.
+    makes a snapshot design. ``rate`` is the relaxation rate lambda per day.
+
+    Wright-Fisher communities of the new collections have ``population_size`` N > 0
+    individuals and ``generations_per_day`` g, so that ``theta = 2 N m`` and
+    ``rate = m g`` (design note, section 1); sampling times are put on the generation
+    grid. ``population_size`` 0 sizes the community from theta and rate (the stationary
+    collection). ``disturbance`` is ``"none"``, ``"cut-top3"`` (strength: the factor the
+    three most abundant taxa are cut by), ``"bloom"`` (strength: the bloomer's share) or
+    ``"colonisation"`` (strength: the share of the start composition drawn from another
+    metacommunity). ``read_precision`` C < inf gives Dirichlet-multinomial reads;
+    ``lognormal_sd`` > 0 multiplies every composition by log-normal noise before reads.
     """
 
     name: str
@@ -68,15 +124,27 @@ class Scenario:
     depth_spread: float
     theta: float = np.nan
     rate: float = np.nan
+    collection: str = "stationary"
+    population_size: int = 0
+    generations_per_day: float = np.nan
+    disturbance: str = "none"
+    disturbance_strength: float = np.nan
+    read_precision: float = np.inf
+    lognormal_sd: float = 0.0
 
     @property
     def neutral(self) -> bool:
-        return self.generator in ("exact", "wright-fisher")
+        return self.generator in NEUTRAL_GENERATORS
 
     @property
     def design_spec(self) -> DesignSpec:
         return DesignSpec(self.n_samples, self.interval, self.irregular, self.depth,
                           self.depth_spread)
+
+    @property
+    def immigration(self) -> float:
+        """m = theta / (2 N) of a sized Wright-Fisher community."""
+        return self.theta / (2.0 * self.population_size)
 
 
 NEUTRAL_LEVELS = {
@@ -92,7 +160,7 @@ NEUTRAL_LEVELS = {
 
 def neutral_scenarios(n_datasets: int, seed: int = 0, wright_fisher_share: float = 0.25,
                       snapshot_share: float = 0.15) -> list[Scenario]:
-    """A balanced sample of ``n_datasets`` neutral scenarios from the full factorial grid.
+    """The stationary collection: a balanced sample of ``n_datasets`` scenarios of a grid.
 
     The grid crosses :data:`NEUTRAL_LEVELS` (taxa, samples, depth, depth spread, regular or
     irregular intervals, weak (theta 10) or strong (theta 300) immigration, slow or fast
@@ -113,20 +181,259 @@ def neutral_scenarios(n_datasets: int, seed: int = 0, wright_fisher_share: float
             generator="wright-fisher" if wright_fisher else "exact",
             n_taxa=levels["n_taxa"], n_samples=levels["n_samples"],
             interval=None if snapshot else 1.0, irregular=levels["irregular"],
-            depth=levels["depth"], depth_spread=levels["depth_spread"], theta=levels["theta"], rate=levels["rate"]))
+            depth=levels["depth"], depth_spread=levels["depth_spread"], theta=levels["theta"],
+            rate=levels["rate"]))
     return scenarios
 
 
-def niche_scenarios(n_datasets: int, generator: str) -> list[Scenario]:
-    """``n_datasets`` niche scenarios: 40 taxa, 100 daily samples, depth 10^4."""
-    return [Scenario(name=f"{generator}_{index + 1:04d}", generator=generator, n_taxa=40,
+def niche_scenarios(n_datasets: int, generator: str,
+                    read_precision: float = np.inf) -> list[Scenario]:
+    """``n_datasets`` niche scenarios: 40 taxa, 100 daily samples, depth 10^4.
+
+    A finite ``read_precision`` C gives Dirichlet-multinomial reads (collection
+    ``"<generator>-noise<C>"``).
+    """
+    collection = generator if np.isinf(read_precision) else f"{generator}-noise{read_precision:g}"
+    return [Scenario(name=f"{collection}_{index + 1:04d}", generator=generator, n_taxa=40,
                      n_samples=100, interval=1.0, irregular=False, depth=10_000,
-                     depth_spread=0.0) for index in range(n_datasets)]
+                     depth_spread=0.0, collection=collection, read_precision=read_precision)
+            for index in range(n_datasets)]
+
+
+#: Design levels of the new Wright-Fisher collections (short series: SHORT_SAMPLES).
+WRIGHT_FISHER_LEVELS = {
+    "n_taxa": (15, 30, 60, 100),
+    "n_samples": (20, 50, 100, 200),
+    "depth": (2_000, 5_000, 20_000),
+    "depth_spread": (0.0, 0.5),
+    "irregular": (False, True),
+}
+SHORT_SAMPLES = (10, 15, 20, 25)
+THETA_LEVELS = (10.0, 30.0, 100.0, 300.0, 1000.0)
+RATE_LEVELS = (0.05, 0.1, 0.3, 1.0)
+#: (form, strength) of the disturbed collection, used round-robin (any three in a row
+#: cover the three forms).
+DISTURBANCES = (("cut-top3", 0.1), ("bloom", 0.5), ("colonisation", 1.0),
+                ("cut-top3", 1.0 / 3.0), ("bloom", 0.3), ("colonisation", 0.5))
+LOGNORMAL_SDS = (0.2, 0.35, 0.5)
+
+
+def population_bounds(theta: float, rate: float, n_samples: int) -> tuple[float, float]:
+    """Smallest and largest N for which g = 2 N rate / theta respects the generation caps.
+
+    The span of a series is taken as at most 1.5 n_samples days (irregular gaps have mean
+    one day).
+    """
+    most_per_day = min(MAX_GENERATIONS_PER_DAY, MAX_GENERATIONS / (1.5 * n_samples))
+    low = max(MIN_POPULATION, MIN_GENERATIONS_PER_DAY * theta / (2.0 * rate))
+    high = min(WRIGHT_FISHER_MAX_SIZE, most_per_day * theta / (2.0 * rate))
+    return low, high
+
+
+def feasible_dynamics(n_samples: int) -> list[tuple[float, float]]:
+    """(theta, rate) pairs of the level grids that a community of N >= 10^4 can realise."""
+    pairs = []
+    for theta, rate in itertools.product(THETA_LEVELS, RATE_LEVELS):
+        low, high = population_bounds(theta, rate, n_samples)
+        if low <= high:
+            pairs.append((theta, rate))
+    return pairs
+
+
+def balanced(levels: Sequence, n: int, rng: np.random.Generator) -> list:
+    """``n`` values: fresh seeded permutations of ``levels`` one after the other.
+
+    Every level appears equally often up to one, and fewer than ``len(levels)`` values
+    are a random subset.
+    """
+    blocks = -(-n // len(levels))
+    order = np.argsort(rng.random((blocks, len(levels))), axis=1).ravel()[:n]
+    return [levels[i] for i in order]
+
+
+def wright_fisher_scenarios(collection: str, n_datasets: int, seed: int,
+                            extras: Callable[[int], dict] | None = None,
+                            samples: Sequence[int] = WRIGHT_FISHER_LEVELS["n_samples"]
+                            ) -> list[Scenario]:
+    """``n_datasets`` sized Wright-Fisher scenarios with balanced design levels.
+
+    Each design factor of :data:`WRIGHT_FISHER_LEVELS` (samples from ``samples``) and the
+    feasible (theta, rate) pairs are balanced independently in a seeded order; N is
+    log-uniform between :func:`population_bounds`. ``extras(index)`` adds the
+    collection's own fields. Deterministic given ``seed`` and the collection.
+    """
+    rng = seeds.generator(seeds.dataset_stream(seed, f"scenarios/{collection}"))
+    factors = {name: balanced(levels, n_datasets, rng)
+               for name, levels in WRIGHT_FISHER_LEVELS.items() if name != "n_samples"}
+    factors["n_samples"] = balanced(tuple(samples), n_datasets, rng)
+    dynamics = balanced(feasible_dynamics(max(samples)), n_datasets, rng)
+    scenarios = []
+    for index, (theta, rate) in enumerate(dynamics):
+        n_samples = factors["n_samples"][index]
+        low, high = population_bounds(theta, rate, n_samples)
+        size = int(round(np.exp(rng.uniform(np.log(low), np.log(high)))))
+        scenarios.append(Scenario(
+            name=f"{collection}_{index + 1:04d}", generator="wright-fisher",
+            n_taxa=factors["n_taxa"][index], n_samples=n_samples, interval=1.0,
+            irregular=bool(factors["irregular"][index]), depth=factors["depth"][index],
+            depth_spread=factors["depth_spread"][index], theta=theta, rate=rate,
+            collection=collection, population_size=size,
+            generations_per_day=2.0 * size * rate / theta,
+            **(extras(index) if extras else {})))
+    return scenarios
+
+
+def disturbed_scenarios(n_datasets: int, seed: int) -> list[Scenario]:
+    """The disturbed collection: every form and strength of :data:`DISTURBANCES` in turn."""
+    def extras(index: int) -> dict:
+        form, strength = DISTURBANCES[index % len(DISTURBANCES)]
+        return {"disturbance": form, "disturbance_strength": strength}
+    return wright_fisher_scenarios("disturbed", n_datasets, seed, extras)
+
+
+def noise_scenarios(collection: str, n_datasets: int, seed: int) -> list[Scenario]:
+    """A noise collection: Dirichlet-multinomial reads at the collection's precision."""
+    precision = NOISE_PRECISIONS[collection]
+    return wright_fisher_scenarios(collection, n_datasets, seed,
+                                   lambda index: {"read_precision": precision})
+
+
+def lognormal_noise_scenarios(n_datasets: int, seed: int) -> list[Scenario]:
+    """The lognormal-noise collection: log-sd 0.2, 0.35 and 0.5 in turn."""
+    return wright_fisher_scenarios(
+        "lognormal-noise", n_datasets, seed,
+        lambda index: {"lognormal_sd": LOGNORMAL_SDS[index % len(LOGNORMAL_SDS)]})
+
+
+def short_scenarios(n_datasets: int, seed: int) -> list[Scenario]:
+    """The short collection: 10 to 25 samples, stationary start, multinomial reads."""
+    return wright_fisher_scenarios("short", n_datasets, seed, samples=SHORT_SAMPLES)
+
+
+def collection_scenarios(collection: str, n_datasets: int, seed: int) -> list[Scenario]:
+    """The scenarios of one collection (``n_datasets`` of them; half for lognormal-noise)."""
+    if collection == "stationary":
+        return neutral_scenarios(n_datasets, seed)
+    if collection == "disturbed":
+        return disturbed_scenarios(n_datasets, seed)
+    if collection in NOISE_PRECISIONS:
+        return noise_scenarios(collection, n_datasets, seed)
+    if collection == "lognormal-noise":
+        return lognormal_noise_scenarios(int(np.ceil(LOGNORMAL_SHARE * n_datasets)), seed)
+    if collection == "short":
+        return short_scenarios(n_datasets, seed)
+    if collection in NICHE_GENERATORS:
+        return niche_scenarios(n_datasets, collection)
+    generator = collection.removesuffix(f"-noise{NICHE_NOISE_PRECISION:g}")
+    if collection in NICHE_COLLECTIONS and generator in NICHE_GENERATORS:
+        return niche_scenarios(n_datasets, generator, NICHE_NOISE_PRECISION)
+    raise ValueError(f"unknown collection {collection!r}")
+
+
+def study_scenarios(collections: Sequence[str], neutral: int, niche: int,
+                    seed: int) -> list[Scenario]:
+    """Every scenario of the study: ``neutral`` per neutral collection, ``niche`` per niche."""
+    scenarios = []
+    for collection in collections:
+        size = neutral if collection in NEUTRAL_COLLECTIONS else niche
+        scenarios += collection_scenarios(collection, size, seed)
+    return scenarios
+
+
+def cut_top_taxa(composition: np.ndarray, rng: np.random.Generator, *,
+                 factor: float, n_top: int = 3) -> np.ndarray:
+    """The ``n_top`` most abundant taxa of each community multiplied by ``factor``."""
+    top = np.argsort(composition, axis=1, kind="stable")[:, -n_top:]
+    cut = composition.copy()
+    np.put_along_axis(cut, top, factor * np.take_along_axis(composition, top, axis=1), axis=1)
+    return cut / cut.sum(axis=1, keepdims=True)
+
+
+def bloom(composition: np.ndarray, rng: np.random.Generator, *, share: float) -> np.ndarray:
+    """One uniformly chosen taxon per community grows to ``share``; the rest keep ratios."""
+    rows = np.arange(composition.shape[0])
+    bloomer = rng.integers(composition.shape[1], size=rows.size)
+    rest = 1.0 - composition[rows, bloomer]
+    scale = np.divide(1.0 - share, rest, out=np.zeros_like(rest), where=rest > 0)
+    bloomed = composition * scale[:, None]
+    bloomed[rows, bloomer] = share
+    return bloomed
+
+
+def colonisation(composition: np.ndarray, rng: np.random.Generator, *,
+                 shape: np.ndarray) -> np.ndarray:
+    """A fresh community per row: Dirichlet(``shape``), whatever was there before."""
+    return dirichlet_rows(np.broadcast_to(shape, composition.shape), rng)
+
+
+def disturbance_for(scenario: Scenario, p: np.ndarray,
+                    rng: np.random.Generator) -> Disturbance | None:
+    """The scenario's disturbance as a callable for the Wright-Fisher simulator.
+
+    A colonisation starts from Dirichlet(theta q), q = (1 - s) p + s q' with q' a second
+    log-normal metacommunity over the same taxa in random order and s the strength.
+    """
+    strength = scenario.disturbance_strength
+    if scenario.disturbance == "none":
+        return None
+    if scenario.disturbance == "cut-top3":
+        return partial(cut_top_taxa, factor=strength)
+    if scenario.disturbance == "bloom":
+        return partial(bloom, share=strength)
+    if scenario.disturbance == "colonisation":
+        other = rng.permutation(metacommunity(p.size, rng))
+        start = (1.0 - strength) * p + strength * other
+        return partial(colonisation, shape=scenario.theta * start)
+    raise ValueError(f"unknown disturbance {scenario.disturbance!r}")
+
+
+def lognormal_noise(composition: np.ndarray, sd: float, rng: np.random.Generator) -> np.ndarray:
+    """Compositions times independent log-normal factors exp(sd Z), renormalised."""
+    noisy = composition * np.exp(sd * rng.standard_normal(composition.shape))
+    return noisy / noisy.sum(axis=-1, keepdims=True)
+
+
+def on_generation_grid(design: Design, generations_per_day: float
+                       ) -> tuple[Design, np.ndarray]:
+    """The design with its times moved to the generation grid, and the generations.
+
+    Generations are the rounded ``times * g``, pushed up where needed so that every
+    sample has its own generation; the returned times are ``generations / g``, so the test
+    is told the times the community was actually sampled at.
+    """
+    steps = np.arange(design.n_samples)
+    generations = np.rint(design.times * generations_per_day).astype(np.int64)
+    generations = np.maximum.accumulate(generations - steps) + steps
+    return Design(depths=design.depths, times=generations / generations_per_day), generations
+
+
+def wright_fisher_community(scenario: Scenario, design: Design, rng: np.random.Generator
+                            ) -> tuple[Design, np.ndarray]:
+    """Counts (T, K) of one sized Wright-Fisher scenario and its design on the generation grid.
+
+    Draws the metacommunity, the disturbance, the community and its reads from ``rng``.
+    """
+    design, generations = on_generation_grid(design, scenario.generations_per_day)
+    p = metacommunity(scenario.n_taxa, rng)
+    community = dict(p=p, population_size=scenario.population_size,
+                     immigration=scenario.immigration, generations_at=generations,
+                     n_replicates=1, rng=rng, disturb=disturbance_for(scenario, p, rng))
+    if scenario.lognormal_sd > 0:
+        composition = wright_fisher_compositions(**community)[0]
+        noisy = lognormal_noise(composition, scenario.lognormal_sd, rng)
+        return design, dirichlet_multinomial_reads(noisy, design.depths, np.inf, rng)
+    counts = simulate_wright_fisher(**community, depths=design.depths,
+                                    read_precision=scenario.read_precision)
+    return design, counts[0]
 
 
 def wright_fisher_counts(model: NeutralModel, design: Design,
                          rng: np.random.Generator) -> np.ndarray:
-    """One Wright-Fisher dataset matching (theta, rate, times): counts (T, K)."""
+    """One Wright-Fisher dataset matching (theta, rate, times): counts (T, K).
+
+    The stationary collection's community: N from :data:`WRIGHT_FISHER_SIZE`, enough
+    generations per interval and at least theta / 2.
+    """
     shortest = float(np.min(np.diff(design.times)))
     needed = int(np.ceil(WRIGHT_FISHER_GENERATIONS / (model.kappa * shortest)))
     size = int(min(max(WRIGHT_FISHER_SIZE, needed, 2 * model.theta), WRIGHT_FISHER_MAX_SIZE))
@@ -134,14 +441,28 @@ def wright_fisher_counts(model: NeutralModel, design: Design,
     return simulate_wright_fisher(**settings, n_replicates=1, rng=rng)[0]
 
 
+def niche_reads(community: StochasticLogistic | NoisyLotkaVolterra, design: Design,
+                read_precision: float, rng: np.random.Generator) -> np.ndarray:
+    """Counts (T, K) of one niche community, Dirichlet-multinomial at finite precision."""
+    if np.isinf(read_precision):
+        return community.simulate(design, 1, rng)[0]
+    abundance = community.abundances(design, 1, rng)[0]
+    composition = abundance / abundance.sum(axis=1, keepdims=True)
+    return dirichlet_multinomial_reads(composition, design.depths, read_precision, rng)
+
+
 def simulate_scenario(scenario: Scenario, seed: int) -> Dataset:
     """The dataset of one scenario, from the stream keyed by ``seed`` and its name."""
     rng = seeds.generator(seeds.dataset_stream(seed, scenario.name))
     design = scenario.design_spec.draw(rng)
     if scenario.generator == "logistic":
-        counts = StochasticLogistic(scenario.n_taxa).simulate(design, 1, rng)[0]
+        counts = niche_reads(StochasticLogistic(scenario.n_taxa), design,
+                             scenario.read_precision, rng)
     elif scenario.generator == "lotka-volterra":
-        counts = NoisyLotkaVolterra(scenario.n_taxa).simulate(design, 1, rng)[0]
+        counts = niche_reads(NoisyLotkaVolterra(scenario.n_taxa), design,
+                             scenario.read_precision, rng)
+    elif scenario.population_size > 0:
+        design, counts = wright_fisher_community(scenario, design, rng)
     else:
         rate = scenario.rate if design.is_time_series else None
         model = NeutralModel(metacommunity(scenario.n_taxa, rng), scenario.theta, rate)
@@ -156,9 +477,11 @@ def run_scenario(scenario: Scenario, seed: int, replicates: int, groupings: int)
     """Simulate one scenario and test it: one row of the study's table."""
     dataset = simulate_scenario(scenario, seed)
     result = neutrality_test(dataset, replicates=replicates, groupings=groupings, seed=seed)
+    precision = result.parameters.get("precision")
     row = asdict(scenario)
     row.update(kept_taxa=dataset.n_taxa, theta_hat=result.model.theta,
                rate_hat=result.model.rate if result.model.rate is not None else np.nan,
+               noise_precision_hat=precision.estimate if precision is not None else np.nan,
                correlation_times=correlation_times(result.model, dataset.design))
     row.update({f"p_{name}": stat.pvalue for name, stat in result.statistics.items()})
     return row
@@ -189,12 +512,28 @@ def rejection_table(frame: pd.DataFrame, alpha: float = 0.05) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def markdown_table(table: pd.DataFrame) -> str:
-    lines = ["| statistic | datasets with a p-value | rejected | rate | 95% interval |",
-             "|---|---|---|---|---|"]
+#: The false-positive target band, as multiples of alpha (0.03 - 0.07 at alpha = 0.05).
+TARGET_BAND = (0.6, 1.4)
+
+
+def band_verdict(rate: float, alpha: float) -> str:
+    """Where a false-positive rate lies relative to the target band."""
+    if not np.isfinite(rate):
+        return "-"
+    low, high = (factor * alpha for factor in TARGET_BAND)
+    return "below" if rate < low else "above" if rate > high else "inside"
+
+
+def markdown_table(table: pd.DataFrame, alpha: float | None = None) -> str:
+    """A rejection table in Markdown; with ``alpha``, a column placing it in the band."""
+    band = alpha is not None
+    lines = ["| statistic | datasets with a p-value | rejected | rate | 95% interval |"
+             + (" target band |" if band else ""),
+             "|---|---|---|---|---|" + ("---|" if band else "")]
     for row in table.itertuples():
-        lines.append(f"| {row.statistic} | {row.datasets} | {row.rejected} | {row.rate:.3f} | "
-                     f"{row.ci_low:.3f} - {row.ci_high:.3f} |")
+        line = (f"| {row.statistic} | {row.datasets} | {row.rejected} | {row.rate:.3f} | "
+                f"{row.ci_low:.3f} - {row.ci_high:.3f} |")
+        lines.append(line + (f" {band_verdict(row.rate, alpha)} |" if band else ""))
     return "\n".join(lines)
 
 
@@ -203,7 +542,7 @@ def breakdown(frame: pd.DataFrame, by: str, alpha: float) -> str:
     columns = pvalue_columns(frame)
     lines = [f"| {by} | datasets | " + " | ".join(c[2:] for c in columns) + " |",
              "|---" * (len(columns) + 2) + "|"]
-    for level, part in frame.groupby(by, dropna=False):
+    for level, part in frame.groupby(by, dropna=False, observed=True):
         rates = []
         for column in columns:
             values = part[column].to_numpy(dtype=float)
@@ -213,81 +552,200 @@ def breakdown(frame: pd.DataFrame, by: str, alpha: float) -> str:
     return "\n".join(lines)
 
 
+def with_factors(neutral: pd.DataFrame) -> pd.DataFrame:
+    """The pooled neutral table with the binned factors the breakdowns split by."""
+    return neutral.assign(
+        collection=pd.Categorical(neutral["collection"], categories=NEUTRAL_COLLECTIONS),
+        design=np.where(neutral["interval"].isna(), "snapshot", "time series"),
+        coverage=pd.cut(neutral["correlation_times"], [0, 5, 15, 50, np.inf],
+                        labels=["<5", "5-15", "15-50", ">=50"]),
+        theta_range=pd.cut(neutral["theta"], [0, 30, 300, np.inf],
+                           labels=["10-30", "31-300", ">300"]),
+        taxa=pd.cut(neutral["n_taxa"], [0, 20, 60, np.inf], labels=["15-20", "21-60", ">60"]),
+        samples=pd.cut(neutral["n_samples"], [0, 25, 60, 150, np.inf],
+                       labels=["10-25", "26-60", "61-150", ">150"]),
+        form=neutral["disturbance"] + " " + neutral["disturbance_strength"].map("{:.2g}".format))
+
+
+def complete_pvalue_share(neutral: pd.DataFrame, min_samples: int = 25) -> tuple[int, int]:
+    """Time series with >= ``min_samples`` samples: (with every statistic's p-value, all)."""
+    long = neutral[neutral["interval"].notna() & (neutral["n_samples"] >= min_samples)]
+    complete = np.isfinite(long[pvalue_columns(long)].to_numpy(dtype=float)).all(axis=1)
+    return int(complete.sum()), len(long)
+
+
+def completeness_table(neutral: pd.DataFrame, min_samples: int = 25) -> str:
+    """Per collection and pooled: share of long time series with every p-value."""
+    lines = [f"| collection | time series with >= {min_samples} samples | with every "
+             "p-value | share |", "|---|---|---|---|"]
+    parts = list(neutral.groupby("collection", observed=True))
+    for label, part in parts + [("all neutral", neutral)]:
+        complete, total = complete_pvalue_share(part, min_samples)
+        share = f"{complete / total:.3f}" if total else "-"
+        lines.append(f"| {label} | {total} | {complete} | {share} |")
+    return "\n".join(lines)
+
+
+def precision_table(frame: pd.DataFrame) -> str:
+    """Fitted read precision against the truth, per collection (where it was estimated)."""
+    lines = ["| collection | true precision | datasets with an estimate | median estimate | "
+             "5% - 95% of estimates |", "|---|---|---|---|---|"]
+    for collection, part in frame.groupby("collection", sort=False):
+        estimates = part["noise_precision_hat"].to_numpy(dtype=float)
+        estimates = estimates[~np.isnan(estimates)]
+        if not estimates.size:
+            continue
+        truth = part["read_precision"].iloc[0]
+        low, median, high = np.quantile(estimates, [0.05, 0.5, 0.95], method="inverted_cdf")
+        lines.append(f"| {collection} | {truth:g} | {estimates.size} | {median:.4g} | "
+                     f"{low:.4g} - {high:.4g} |")
+    return "\n".join(lines)
+
+
+COLLECTION_NOTES = {
+    "stationary": "the original grid: stationary start, multinomial reads, exact and "
+                  "discrete Wright-Fisher generators, 15% snapshots",
+    "disturbed": "discrete Wright-Fisher communities disturbed just before the first sample "
+                 "(top three taxa cut to 1/10 or 1/3; a random taxon blooming to 30% or "
+                 "50%; colonisation-like start around a half or wholly different "
+                 "composition), relaxing towards the metacommunity",
+    "noise100": "stationary Wright-Fisher communities, Dirichlet-multinomial reads, C = 100",
+    "noise300": "stationary Wright-Fisher communities, Dirichlet-multinomial reads, C = 300",
+    "noise1000": "stationary Wright-Fisher communities, Dirichlet-multinomial reads, C = 1000",
+    "lognormal-noise": "stationary Wright-Fisher communities times log-normal noise per taxon "
+                       "and sample (log-sd 0.2, 0.35, 0.5), then multinomial reads; half "
+                       "the size of the other collections",
+    "short": "stationary Wright-Fisher series of 10-25 daily or irregular samples",
+    "logistic": "stochastic logistic model, multinomial reads",
+    "lotka-volterra": "noisy generalised Lotka-Volterra model, multinomial reads",
+    "logistic-noise300": "stochastic logistic model, Dirichlet-multinomial reads, C = 300",
+    "lotka-volterra-noise300": "noisy generalised Lotka-Volterra model, "
+                               "Dirichlet-multinomial reads, C = 300",
+}
+
+
+def false_positive_sections(neutral: pd.DataFrame, alpha: float) -> list[str]:
+    """One false-positive table per neutral collection, then the pooled breakdowns."""
+    low, high = (factor * alpha for factor in TARGET_BAND)
+    parts = ["## False-positive rate on neutral data", "",
+             f"The target band is {low:.2f} to {high:.2f} at alpha = {alpha:g}: a calibrated "
+             "test rejects about alpha of neutral datasets, and the last column says whether "
+             "each observed rate lies inside that band (small collections have wide "
+             "intervals, so read it with the interval).", ""]
+    for collection, part in neutral.groupby("collection", observed=True):
+        parts += [f"### {collection} ({len(part)} datasets)", "",
+                  f"{COLLECTION_NOTES[collection]}.", "",
+                  markdown_table(rejection_table(part, alpha), alpha), ""]
+    parts += ["### All neutral collections pooled", "",
+              markdown_table(rejection_table(neutral, alpha), alpha), "",
+              "Marginal statistics get no p-value when a time series covers fewer than 15 "
+              "correlation times (they are then also left out of `combined`), so their counts "
+              "of datasets are smaller.", "",
+              "### Pooled, by collection, generator, design, coverage, theta, taxa and "
+              "samples (rate, with the number of p-values)", ""]
+    for factor in ("collection", "generator", "design", "coverage", "theta_range", "taxa",
+                   "samples"):
+        parts += [breakdown(neutral, factor, alpha), ""]
+    disturbed = neutral[neutral["disturbance"] != "none"]
+    if len(disturbed):
+        parts += ["### Disturbed collection by disturbance form and strength", "",
+                  breakdown(disturbed, "form", alpha), ""]
+    complete, total = complete_pvalue_share(neutral)
+    parts += ["### Time series that got a p-value for every statistic", "",
+              f"{complete} of {total} neutral time series with at least 25 samples got a "
+              "p-value from every statistic"
+              + (f" ({complete / total:.1%})." if total else "."), "",
+              completeness_table(neutral), ""]
+    return parts
+
+
+def power_sections(niche: pd.DataFrame, alpha: float) -> list[str]:
+    """One power table per niche collection."""
+    parts = ["## Power on niche data (40 taxa, 100 daily samples, depth 10^4)", ""]
+    for collection, part in niche.groupby("collection", sort=False):
+        parts += [f"### {collection} ({len(part)} datasets)", "",
+                  f"{COLLECTION_NOTES[collection]}.", "",
+                  markdown_table(rejection_table(part, alpha)), ""]
+    return parts
+
+
+def reading_guide() -> list[str]:
+    """How the tables were made and how to read them."""
+    return [
+        "## How to read these tables", "",
+        "The breakdowns split the pooled neutral datasets by one factor at a time, so their "
+        "cells are small (a cell of 50 datasets has a Wilson interval about 10 percentage "
+        "points wide) and many cells are compared at once: a single cell outside the band "
+        "is expected now and then. The stationary collection's grid crosses 15, 40 and 150 "
+        "taxa; 30, 100 and 300 daily samples; depths of 2,000 and 20,000 reads with or "
+        "without a spread between samples; regular or irregular intervals; weak (theta 10) "
+        "or strong (theta 300) immigration; slow (0.1 per day) or fast (0.5 per day) "
+        "dynamics. The other neutral collections are discrete Wright-Fisher communities of "
+        f"{MIN_POPULATION:,} to {WRIGHT_FISHER_MAX_SIZE:,} individuals with theta = 2 N m "
+        f"in {min(THETA_LEVELS):g}-{max(THETA_LEVELS):g} and relaxation rate m x "
+        f"(generations per day) in {min(RATE_LEVELS):g}-{max(RATE_LEVELS):g} per day "
+        "(the fastest rates only with theta >= 100, so that a community of at least "
+        f"{MIN_POPULATION:,} needs no more than {MAX_GENERATIONS_PER_DAY:g} generations a "
+        "day); 15 to 100 taxa, 20 to 200 samples (short: 10 to 25), depths 2,000 to "
+        "20,000 with or without a spread, regular or irregular intervals; their sampling "
+        "times lie on the generation grid. Time series covering fewer than 15 correlation "
+        "times (rate x span) get no p-value from the marginal statistics, whose "
+        "calibration failed there in earlier runs.", ""]
+
+
 def report(neutral: pd.DataFrame, niche: pd.DataFrame, alpha: float, command: str,
            seconds: float) -> str:
     """The study's results as Markdown, for docs/validation.md."""
-    neutral = neutral.assign(
-        design=np.where(neutral["interval"].isna(), "snapshot", "time series"),
-        coverage=pd.cut(neutral["correlation_times"], [0, 5, 15, 50, np.inf],
-                        labels=["<5", "5-15", "15-50", ">=50"]))
-    parts = [
-        "# Validation study",
-        "",
-        f"Produced by driftscreen {__version__} with:",
-        "",
-        f"    {command}",
-        "",
-        f"({len(neutral)} neutral and {len(niche)} niche datasets; {seconds / 60:.0f} minutes "
-        "of wall time.) Rejection rates at alpha = "
-        f"{alpha:g}, with Wilson 95% intervals. The design grid, the generators and the "
-        "niche models are described in `src/driftscreen/validation.py`.",
-        "",
-        "## False-positive rate on neutral data",
-        "",
-        markdown_table(rejection_table(neutral, alpha)),
-        "",
-        "Marginal statistics get no p-value when a time series covers fewer than 15 "
-        "correlation times (they are then also left out of `combined`), so their counts of "
-        "datasets are smaller.",
-        "",
-        "### By generator, design and coverage (rate, with the number of p-values)",
-        "",
-        breakdown(neutral, "generator", alpha),
-        "",
-        breakdown(neutral, "design", alpha),
-        "",
-        breakdown(neutral, "coverage", alpha),
-        "",
-        breakdown(neutral, "theta", alpha),
-        "",
-        breakdown(neutral, "n_taxa", alpha),
-        "",
-        breakdown(neutral, "n_samples", alpha),
-        "",
-        "## Power on niche data (40 taxa, 100 daily samples, depth 10^4)",
-        "",
-    ]
-    for generator, part in niche.groupby("generator"):
-        parts += [f"### {generator}", "", markdown_table(rejection_table(part, alpha)), ""]
-    parts += [
-        "## How to read these tables",
-        "",
-        "A calibrated test rejects about alpha = 5% of neutral datasets; the target band for "
-        "every statistic is 2% to 8%. The breakdowns split the same datasets by one factor "
-        "of the design at a time, so their cells are small (a cell of 50 datasets has a "
-        "Wilson interval about 10 percentage points wide) and many cells are compared at "
-        "once: a single cell outside the band is expected now and then. The design grid "
-        "crosses 15, 40 and 150 taxa; 30, 100 and 300 daily samples; depths of 2,000 and "
-        "20,000 reads with or without a spread between samples; regular or irregular "
-        "intervals; weak (theta 10) or strong (theta 300) immigration; slow (0.1 per day) "
-        "or fast (0.5 per day) dynamics; 15% of the datasets are snapshots and a quarter "
-        "of the time series come from the discrete-generation Wright-Fisher simulator. "
-        "Time series covering fewer than 15 correlation times (rate x span) get p-values "
-        "from `regrouping_invariance` and `combined` only; the marginal statistics are "
-        "withheld there because their calibration failed in earlier runs.",
-        "",
-    ]
+    parts = ["# Validation study", "", f"Produced by driftscreen {__version__} with:", "",
+             f"    {command}", "",
+             f"({len(neutral)} neutral and {len(niche)} niche datasets; {seconds / 60:.1f} "
+             f"minutes of wall time.) Rejection rates at alpha = {alpha:g}, with Wilson 95% "
+             "intervals. The collections, their generators and the niche models are "
+             "described in `src/driftscreen/validation.py`.", ""]
+    if len(neutral):
+        parts += false_positive_sections(with_factors(neutral), alpha)
+    if len(niche):
+        parts += power_sections(niche, alpha)
+    estimated = pd.concat([neutral, niche])
+    if "noise_precision_hat" in estimated and estimated["noise_precision_hat"].notna().any():
+        parts += ["## Estimated read precision", "",
+                  "The null's Dirichlet-multinomial precision as fitted to each dataset "
+                  "(inf: no technical noise found), against the precision the data were "
+                  "made with (inf: multinomial reads).", "", precision_table(estimated), ""]
+    parts += reading_guide()
     return "\n".join(parts) + "\n"
 
 
+def collection_list(text: str) -> list[str]:
+    """``--collections``: a comma-separated list of collection names."""
+    names = [name.strip() for name in text.split(",") if name.strip()]
+    unknown = [name for name in names if name not in COLLECTIONS]
+    if unknown or not names:
+        raise argparse.ArgumentTypeError(
+            f"unknown collection {', '.join(unknown) or repr(text)}; choose from "
+            + ",".join(COLLECTIONS))
+    return list(dict.fromkeys(names))
+
+
+def count(text: str) -> int:
+    value = int(text)
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"must be a non-negative integer, got {text}")
+    return value
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = Parser(
         prog="python -m driftscreen.validation",
         description="Run the validation study: false-positive rates on simulated neutral "
                     "datasets and power on simulated niche datasets.")
-    parser.add_argument("--neutral", type=int, default=240, help="neutral datasets (240)")
-    parser.add_argument("--niche", type=int, default=50,
-                        help="datasets per niche model (50)")
+    parser.add_argument("--collections", type=collection_list, default=list(COLLECTIONS),
+                        help="comma-separated collections (default all: "
+                             + ",".join(COLLECTIONS) + ")")
+    parser.add_argument("--neutral", type=count, default=240,
+                        help="datasets per neutral collection (240; lognormal-noise half)")
+    parser.add_argument("--niche", type=count, default=50,
+                        help="datasets per niche collection (50)")
     parser.add_argument("--replicates", type=int, default=199, help="bootstrap replicates (199)")
     parser.add_argument("--groupings", type=int, default=200, help="random groupings (200)")
     parser.add_argument("--alpha", type=float, default=0.05, help="test level (0.05)")
@@ -299,19 +757,23 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    args = build_parser().parse_args(argv)
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    scenarios = study_scenarios(args.collections, args.neutral, args.niche, args.seed)
+    if not scenarios:
+        parser.error("no datasets to simulate: raise --neutral or --niche, or choose "
+                     "other --collections")
     start = time.perf_counter()
-    settings = dict(replicates=args.replicates, groupings=args.groupings, seed=args.seed,
-                    jobs=args.jobs)
-    neutral = run_study(neutral_scenarios(args.neutral, args.seed), **settings)
-    niche = run_study(niche_scenarios(args.niche, "logistic")
-                      + niche_scenarios(args.niche, "lotka-volterra"), **settings)
+    frame = run_study(scenarios, replicates=args.replicates, groupings=args.groupings,
+                      seed=args.seed, jobs=args.jobs)
+    neutral = frame[frame["generator"].isin(NEUTRAL_GENERATORS)]
+    niche = frame[~frame["generator"].isin(NEUTRAL_GENERATORS)]
     command = "python -m driftscreen.validation " + " ".join(
         sys.argv[1:] if argv is None else argv)
     text = report(neutral, niche, args.alpha, command.strip(), time.perf_counter() - start)
     atomic_write_text(args.out, text)
     if args.table:
-        atomic_write_text(args.table, pd.concat([neutral, niche]).to_csv(sep="\t", index=False))
+        atomic_write_text(args.table, frame.to_csv(sep="\t", index=False))
     print(text)
     return 0
 

@@ -551,7 +551,7 @@ def any_influence(run: ScreenResult) -> bool:
 def summary_lines(run: ScreenResult) -> list[str]:
     tested = n_tested(run)
     lines = heading("Summary, sorted by combined q-value") + summary_table(run) + [""]
-    legend = (f"p: combined p-value of the dataset (Cauchy combination of its statistics, "
+    legend = (f"p: combined p-value of the dataset (harmonic mean p-value of its statistics, "
               f"calibrated on the neutral replicates); q: its Benjamini-Hochberg q-value "
               f"across the {tested} tested datasets; verdict: neutrality rejected when "
               f"q <= {ALPHA:g}. theta: immigration parameter; rate: relaxation rate per "
@@ -631,8 +631,8 @@ def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
         "abundance distribution with the stationary law were given no p-value for time "
         "series spanning fewer than 15 correlation times (fitted rate x span), where their "
         "calibration is unreliable. Per dataset, their p-values were "
-        "combined by the Cauchy combination test (Liu & Xie 2020, J. Am. Stat. Assoc. "
-        "115:393), calibrated against the replicates' leave-one-out p-values, and q-values "
+        "combined by their harmonic mean p-value (Wilson 2019, Proc. Natl. Acad. Sci. USA "
+        "116:1195), calibrated against the replicates' leave-one-out p-values, and q-values "
         "were computed per statistic across datasets by the Benjamini-Hochberg procedure "
         "(Benjamini & Hochberg 1995, J. R. Stat. Soc. B 57:289). "
         + (INFLUENCE_METHODS if any_influence(run) else "")

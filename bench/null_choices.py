@@ -5,7 +5,8 @@ reads, short series) simulates datasets with the exact simulator, tests each und
 null options compared (replicates conditioned on the first sample or started from the
 stationary law; technical noise estimated or off) with every p-value computed (no
 withholding on short series), and prints the rejection rate at 0.05 of every statistic,
-overall and for series covering fewer than 15 correlation times.
+overall and for series covering fewer than 15 correlation times; the per-dataset
+p-values go to null_choices.tsv in the working folder.
 
 Usage: python bench/null_choices.py [DATASETS_PER_CELL] [REPLICATES] [JOBS]
 """
@@ -73,7 +74,10 @@ def main(per_cell: int, replicates: int, jobs: int) -> None:
     frame = pd.DataFrame(rows)
     statistics = [c for c in frame.columns if c not in ("collection", "index", "option",
                                                          "coverage")]
-    pd.set_option("display.width", 200)
+    frame.to_csv("null_choices.tsv", sep="\t", index=False)
+    pd.set_option("display.width", 250)
+    pd.set_option("display.max_columns", None)
+    pd.set_option("display.max_rows", None)
     for label, part in (("all series", frame), ("coverage < 15", frame[frame.coverage < 15])):
         rates = part.groupby(["collection", "option"])[statistics].agg(
             lambda p: np.mean(p.dropna() <= 0.05))

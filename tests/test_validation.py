@@ -113,6 +113,11 @@ BUILDERS = {
     "lognormal-noise": lambda n, seed: lognormal_noise_scenarios(n, seed),
     "short": lambda n, seed: short_scenarios(n, seed),
 }
+#: Log-normal read noise multiplies each taxon's abundance: its variance grows as x^2, the
+#: signature of multiplicative environmental noise, which the null (Dirichlet-multinomial
+#: reads, variance x (1 - x)) does not and should not absorb. The study reports it as a
+#: limitation; the calibration checks cover the collections inside the null.
+WITHIN_NULL = sorted(set(BUILDERS) - {"lognormal-noise"})
 
 
 def binomial_bounds(n: int, level: float) -> tuple[float, float]:
@@ -136,13 +141,14 @@ def collection_study():
 
 @pytest.mark.slow
 def test_new_collections_pooled_within_binomial_bounds(collection_study) -> None:
-    for row in rejection_table(collection_study, LEVEL).itertuples():
+    within = collection_study[collection_study["collection"].isin(WITHIN_NULL)]
+    for row in rejection_table(within, LEVEL).itertuples():
         low, high = binomial_bounds(row.datasets, LEVEL)
         assert low <= row.rejected <= high, (row.statistic, row.rejected, row.datasets)
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("collection", sorted(BUILDERS))
+@pytest.mark.parametrize("collection", WITHIN_NULL)
 def test_new_collection_is_not_rejected_wholesale(collection_study, collection: str) -> None:
     # Few datasets per collection, so only a collapse shows: at LEVEL 0.2, 6 of 6
     # rejections have probability 6e-5 under a calibrated test.

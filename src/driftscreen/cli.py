@@ -8,12 +8,14 @@ status 2; results go to stdout or to files, progress and notes to stderr.
 from __future__ import annotations
 
 import argparse
+import math
 import sys
 from collections.abc import Sequence
 from pathlib import Path
 
 from driftscreen import __version__
 from driftscreen.errors import InputError
+from driftscreen.neutral.model import START_CHOICES, NullOptions
 
 EXIT_INPUT = 2
 
@@ -31,6 +33,20 @@ def positive_int(text: str) -> int:
     value = int(text)
     if value < 1:
         raise argparse.ArgumentTypeError(f"must be a positive integer, got {text}")
+    return value
+
+
+def read_noise(text: str) -> str | float:
+    """--read-noise: 'estimate', 'off' or a Dirichlet-multinomial precision C > 0."""
+    if text in ("estimate", "off"):
+        return text
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"must be 'estimate', 'off' or a read precision C > 0, got {text}") from None
+    if not (math.isfinite(value) and value > 0):
+        raise argparse.ArgumentTypeError(f"a read precision must be positive, got {text}")
     return value
 
 
@@ -135,6 +151,25 @@ def add_calibration_options(parser: argparse.ArgumentParser, replicates: int = 9
     return group
 
 
+def add_null_options(parser: argparse.ArgumentParser) -> None:
+    """--read-noise and --start: how the neutral null treats reads and the first sample."""
+    group = parser.add_argument_group("neutral null")
+    group.add_argument("--read-noise", metavar="C", type=read_noise, default="estimate",
+                       help="technical noise of the reads (PCR, extraction): 'estimate' "
+                            "(default; from the variance between samples close in time that "
+                            "drift cannot explain, time series only), 'off' (multinomial "
+                            "reads), or a fixed Dirichlet-multinomial precision C")
+    group.add_argument("--start", choices=START_CHOICES, default="first-sample",
+                       help="'first-sample' (default): replicates of a time series start "
+                            "from its first sample and relax towards the metacommunity, so "
+                            "a community recovering from a disturbance is still neutral; "
+                            "'stationary': they start from the stationary law")
+
+
+def null_options(args: argparse.Namespace) -> NullOptions:
+    return NullOptions(noise=args.read_noise, start=args.start)
+
+
 # ----------------------------------------------------------------------------- simulate
 def add_simulate(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("simulate", help="write simulated community datasets (counts + metadata)",
@@ -200,6 +235,7 @@ def add_test(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--dataset", metavar="NAME",
                    help="which dataset to test when the table holds several")
     add_calibration_options(p)
+    add_null_options(p)
     p.add_argument("--output", metavar="FILE", help="also write the report to FILE")
     p.add_argument("--figures", metavar="DIR",
                    help="also draw the null distributions, Taylor's law and the volatility "
@@ -216,7 +252,8 @@ def run_test(args: argparse.Namespace) -> int:
     report = test_command(dataset, replicates=args.replicates, groupings=args.groupings,
                           seed=args.seed, jobs=args.jobs, output=args.output,
                           detectable=args.detectable, messages=sys.stderr,
-                          figures=args.figures, influence=args.influence)
+                          figures=args.figures, influence=args.influence,
+                          null=null_options(args))
     sys.stdout.write(report)
     return 0
 
@@ -234,6 +271,7 @@ def add_screen(sub: argparse._SubParsersAction) -> None:
                                    "stopped.")
     add_input_options(p)
     add_calibration_options(p)
+    add_null_options(p)
     p.add_argument("--out", metavar="DIR", required=True,
                    help="output folder (created if needed); also holds the resume store")
     p.add_argument("--backend", choices=["loky", "dask"], default="loky",
@@ -268,7 +306,8 @@ def run_screen(args: argparse.Namespace) -> int:
             replicates=args.replicates, groupings=args.groupings, seed=args.seed,
             jobs=args.jobs, backend=args.backend, scheduler=args.scheduler,
             messages=None if args.quiet else sys.stderr, detectable=args.detectable,
-            figures=screen_figures_folder(args), influence=args.influence)
+            figures=screen_figures_folder(args), influence=args.influence,
+            null=null_options(args))
     except KeyboardInterrupt:
         print(f"driftscreen: interrupted; finished datasets are kept in {args.out}: run the "
               "same command again to go on", file=sys.stderr)

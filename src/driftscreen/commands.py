@@ -14,7 +14,7 @@ from driftscreen import seeds
 from driftscreen.dataset import Dataset
 from driftscreen.errors import InputError
 from driftscreen.files import atomic_write_text
-from driftscreen.neutral.model import NeutralModel
+from driftscreen.neutral.model import NeutralModel, NullOptions
 from driftscreen.neutral.simulate import simulate
 from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
 
@@ -138,8 +138,11 @@ def choose_dataset(datasets: Sequence[Dataset], name: str | None, source: str) -
 def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int, jobs: int,
                  output: str | None = None, detectable: bool = False,
                  messages: TextIO | None = None, figures: str | None = None,
-                 influence: bool = True) -> str:
+                 influence: bool = True, null: NullOptions = NullOptions()) -> str:
     """`driftscreen test`: the report text (also written to ``output`` if given).
+
+    ``null`` says how the neutral null treats the reads' technical noise and the first
+    sample of a time series (:class:`driftscreen.neutral.model.NullOptions`).
 
     With ``influence``, a dataset whose combined p-value is at most 0.05 gets its most
     influential sample and its p-values without it (:mod:`driftscreen.influence`). With
@@ -157,9 +160,10 @@ def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int
 
     if figures is not None:
         require_matplotlib()
-    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
+    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed,
+                                   null=null)
     result = neutrality_test(dataset, replicates=replicates, groupings=groupings, seed=seed,
-                             jobs=jobs)
+                             jobs=jobs, noise=null.noise, start=null.start)
     if influence and wants_influence(result):
         if messages is not None:
             print("driftscreen: rejected; finding the sample the rejection rests on most and "
@@ -206,7 +210,8 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
                    intake: Mapping[str, Any], replicates: int, groupings: int, seed: int,
                    jobs: int = 1, backend: str = "loky", scheduler: str | None = None,
                    messages: TextIO | None = None, detectable: bool = False,
-                   figures: Path | None = None, influence: bool = True) -> list[Path]:
+                   figures: Path | None = None, influence: bool = True,
+                   null: NullOptions = NullOptions()) -> list[Path]:
     """`driftscreen screen`: test every dataset of a table, resumably; write the outputs.
 
     Parameters
@@ -234,6 +239,9 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
         Name the most influential sample of every dataset whose combined p-value is at
         most 0.05 (see :func:`driftscreen.screen.screen`); turning it off is part of the
         fingerprint.
+    null:
+        Technical noise and start of the neutral null
+        (:class:`driftscreen.neutral.model.NullOptions`); part of the fingerprint.
 
     Returns
     -------
@@ -254,7 +262,8 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
     check_backend(backend, scheduler)
     if figures is not None:
         require_matplotlib()
-    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
+    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed,
+                                   null=null)
     intake = {**intake_defaults(), **intake}
     datasets = read_datasets(counts, metadata, **intake, min_samples=1, min_taxa=1)
     inputs = {"counts": counts, "metadata": metadata, "taxon_map": intake.get("taxon_map")}
@@ -267,6 +276,7 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
         fingerprint["detectable"] = detectable_settings()
     if not influence:
         fingerprint["influence"] = INFLUENCE_OFF
+    fingerprint["null"] = {"read_noise": null.noise, "start": null.start}
     store = ResultStore.open(out, fingerprint)
     with execution_backend(backend, scheduler, jobs) as n_jobs:
         run = screen(datasets, settings, jobs=n_jobs, store=store, messages=messages,

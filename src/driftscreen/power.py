@@ -480,7 +480,9 @@ def run_power_task(task: PowerTask) -> TaskOutput:
         if reason:
             return TaskOutput(missing, reason)
         result = neutrality_test(dataset, replicates=task.settings.replicates,
-                                 groupings=task.settings.groupings, seed=task.settings.seed)
+                                 groupings=task.settings.groupings, seed=task.settings.seed,
+                                 noise=task.settings.null.noise,
+                                 start=task.settings.null.start)
     except Exception as error:  # noqa: BLE001 - one dataset's failure must not stop the run
         return TaskOutput(missing, f"{type(error).__name__}: {error}")
     return TaskOutput(np.array([result.statistics[name].pvalue if name in result.statistics
@@ -702,7 +704,7 @@ def detectable_line(dataset: Dataset, settings: CalibrationSettings, *,
     alt = as_alternative(alternative)
     grid = DEFAULT_STRENGTHS[alt.name]
     quick = CalibrationSettings(replicates=replicates, groupings=settings.groupings,
-                                seed=settings.seed)
+                                seed=settings.seed, null=settings.null)
     design = PowerDesign.from_dataset(dataset)
     mde = bisect_detectable(design, alt, grid, n_datasets, quick, jobs, alpha)
     head = f"{DETECTABLE_PREFIX}{design.short_text()}), the {alt.label} niche alternative"

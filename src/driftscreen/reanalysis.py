@@ -63,7 +63,8 @@ def depth_sensitivity_line(dataset: Dataset, stated: NeutralityResult,
     The lower-depth test uses the same settings and seed, so it is reproducible.
     """
     lower = neutrality_test(at_lower_depth(dataset, factor), replicates=settings.replicates,
-                            groupings=settings.groupings, seed=settings.seed)
+                            groupings=settings.groupings, seed=settings.seed,
+                            noise=settings.null.noise, start=settings.null.start)
     pairs = [f"{name} {stated.statistics[name].pvalue:.3g} -> {lower.statistics[name].pvalue:.3g}"
              for name in stated.statistics if name in lower.statistics]
     same = (stated[COMBINED].pvalue <= 0.05) == (lower[COMBINED].pvalue <= 0.05)

@@ -104,16 +104,18 @@ def label(key: str) -> str:
         return "--" + key.split(".", 1)[1].replace("_", "-")
     if key in ("replicates", "groupings", "seed"):
         return f"--{key}"
+    if key.startswith("null."):
+        return "--" + key.split(".", 1)[1].replace("_", "-")
     if key == "influence":
         return "most influential samples"
     return key.replace("_", " ")
 
 
 def flat_entries(fingerprint: Mapping[str, Any]) -> dict[str, Any]:
-    """``{"seed": 1, "intake.time_by": "day", "inputs.counts": {...}, ...}``."""
+    """``{"seed": 1, "intake.time_by": "day", "null.start": "first-sample", ...}``."""
     entries: dict[str, Any] = {}
     for key, value in comparable(fingerprint).items():
-        if key in ("inputs", "intake") and isinstance(value, dict):
+        if key in ("inputs", "intake", "null") and isinstance(value, dict):
             entries.update({f"{key}.{k}": v for k, v in value.items()})
         else:
             entries[key] = value

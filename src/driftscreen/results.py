@@ -167,7 +167,7 @@ class NeutralityResult:
 
     @property
     def pvalue(self) -> float:
-        """The combined p-value (Cauchy combination of all statistics)."""
+        """The combined p-value (calibrated harmonic mean p-value of all statistics)."""
         return self.statistics["combined"].pvalue
 
     @property

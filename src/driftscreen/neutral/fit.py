@@ -45,6 +45,8 @@ V_MAX = 1.0 - 1e-9
 #: RATE_MAX_LAG (above, exp(-rate * lag) < 5e-5 at every lag: the variogram is flat).
 RATE_MIN_SPAN = 0.01
 RATE_MAX_LAG = 10.0
+#: Lowest rate * span of a fit conditioned on the first sample (see :func:`rate_bounds`).
+CONDITIONED_MIN_SPAN = 1.0
 #: Below this rate * span the plateau of the variogram is barely reached (design note, section 5).
 WEAK_RATE_SPAN = 5.0
 #: Spacing of the log-rate grid (natural-log units); crossings are interpolated within it.
@@ -167,20 +169,25 @@ class _Crossing:
         return below + self.fraction * (above - below)
 
 
-def rate_bounds(design: Design) -> tuple[float, float]:
+def rate_bounds(design: Design, conditioned: bool = False) -> tuple[float, float]:
     """Search range of the rate (per day) for a time-series design.
 
     ``[RATE_MIN_SPAN / span, RATE_MAX_LAG / shortest lag]`` over the samples usable in the
     variogram (depth >= 2; all samples if fewer than two are usable): outside it the
     variogram is either linear over the whole span or flat at every lag, and the rate is
-    not identified.
+    not identified. Conditioned on the first sample the lower end is
+    ``CONDITIONED_MIN_SPAN / span``: slower dynamics pin the mean path to the first sample,
+    the spread about it carries almost no drift, and the moment equations admit spurious
+    solutions with a huge drift variance.
     """
     if design.times is None or design.n_samples < 2:
         raise ValueError("rate bounds need a time-series design with at least two samples")
     times = design.times[design.depths >= 2]
     if times.size < 2:
         times = design.times
-    return RATE_MIN_SPAN / float(times[-1] - times[0]), RATE_MAX_LAG / float(np.diff(times).min())
+    span = float(times[-1] - times[0])
+    low = (CONDITIONED_MIN_SPAN if conditioned else RATE_MIN_SPAN) / span
+    return low, RATE_MAX_LAG / float(np.diff(times).min())
 
 
 def pooled_fractions(counts: np.ndarray, design: Design) -> np.ndarray:
@@ -306,7 +313,7 @@ def fitted_model(result: NullFit, design: Design, options: NullOptions = NullOpt
     noise not separable from drift (snapshots, or successive samples nearly independent).
     """
     rate = None if result.rate is None else float(result.rate[index])
-    flags = _fit_flags(design, rate, bool(result.clipped[index]))
+    flags = _fit_flags(design, rate, bool(result.clipped[index]), options.conditioned)
     flags += _noise_flags(design, rate, options)
     return NeutralModel(result.p[index], float(result.theta[index]), rate,
                         float(result.noise[index]), flags)
@@ -564,7 +571,7 @@ _SERIES_CACHE: dict[tuple, _SeriesDesign] = {}
 def _new_series_design(design: Design, conditioned: bool) -> _SeriesDesign:
     usable = np.flatnonzero(design.depths >= 2)
     adjacent, second = (usable[:-1], usable[1:]), (usable[:-2], usable[2:])
-    low, high = rate_bounds(design)
+    low, high = rate_bounds(design, conditioned)
     n_grid = int(np.ceil(np.log(high / low) / LOG_RATE_STEP)) + 1
     log_grid = np.linspace(np.log(low), np.log(high), n_grid)
     gaps = design.times[adjacent[1]] - design.times[adjacent[0]]
@@ -705,7 +712,8 @@ def _noise_flags(design: Design, rate: float | None, options: NullOptions) -> tu
             "four samples): reads are treated as multinomial",)
 
 
-def _fit_flags(design: Design, rate: float | None, clipped: bool) -> tuple[str, ...]:
+def _fit_flags(design: Design, rate: float | None, clipped: bool,
+               conditioned: bool = False) -> tuple[str, ...]:
     """Plain-text notes on one fit."""
     flags = []
     if clipped:
@@ -720,7 +728,7 @@ def _fit_flags(design: Design, rate: float | None, clipped: bool) -> tuple[str, 
         flags.append("series too short to estimate the rate (fewer than two distinct lags); "
                      "samples treated as independent")
         return tuple(flags)
-    low, high = rate_bounds(design)
+    low, high = rate_bounds(design, conditioned)
     if np.isclose(rate, low, rtol=1e-9):
         flags.append(f"rate at the lower bound of its search range ({low:.3g} per day): "
                      "the variogram does not level off within the series")

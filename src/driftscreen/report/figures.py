@@ -12,7 +12,7 @@ state are involved. Per dataset, in a folder:
   (Taylor 1961, Nature 189:732);
 * ``<dataset>_volatility.png`` (time series): the volatility of random groups of taxa
   against their fitted abundance, 1 being neutral (after Washburne et al. 2016, PLoS
-  Comput. Biol. 12:e1004819).
+  Comput. Biol. 12:e1005124).
 
 Files are written through a temporary file and a rename, so a final name never holds half
 a figure.
@@ -48,7 +48,7 @@ STATISTIC_AXES = {
     "regrouping_invariance": "variance of log volatility over groupings of taxa",
     "fluctuation_scaling": "Taylor exponent b",
     "dispersion_heterogeneity": "likelihood ratio, taxon-specific vs common theta",
-    "combined": "-log10 of the Cauchy-combined p-value",
+    "combined": "-log10 of the harmonic mean p-value",
 }
 DPI = 120
 OBSERVED_COLOUR = "#c0392b"

@@ -12,7 +12,7 @@ from driftscreen.statistics.stationary_divergence import StationaryDivergence
 #: Every statistic class, in output order.
 STATISTIC_CLASSES = (StationaryDivergence, RegroupingInvariance, FluctuationScaling,
                      DispersionHeterogeneity)
-#: Names of all reported statistics; "combined" (the Cauchy combination of the others'
+#: Names of all reported statistics; "combined" (the harmonic mean p-value of the others'
 #: p-values) comes last.
 STATISTIC_NAMES: tuple[str, ...] = tuple(cls.name for cls in STATISTIC_CLASSES) + ("combined",)
 

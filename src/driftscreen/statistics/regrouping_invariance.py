@@ -4,7 +4,7 @@ Basis. Under neutrality any group G of taxa is itself a two-type Wright-Fisher d
 with immigration (theta, P_G), whatever the group (the grouping invariance behind the
 neutral covariance test of Washburne, Burby, Lacker (2016) "Novel covariance-based
 neutrality test of time-series data reveals asymmetries in ecological and economic
-systems", PLoS Comput. Biol. 12(3): e1004819; design note section 6). The angular
+systems", PLoS Comput. Biol. 12: e1005124; design note section 6). The angular
 transform y = arcsin(sqrt(x)) gives it a diffusion coefficient 1/4 free of G and of the
 abundance, and Anscombe's version arcsin(sqrt((N + 3/8)/(n + 3/4))) gives binomial
 sampling noise of variance 1/(4 n + 2) free of the abundance (Anscombe 1948,

@@ -48,7 +48,8 @@ def test_replicates_are_conditioned_on_the_observed_first_sample():
         return np.zeros(stat_counts.shape[0])
 
     probe = type("Probe", (), {"name": "probe", "needs_time": False, "alternative": "greater",
-                               "marginal": False, "compute": staticmethod(keep)})()
+                               "marginal": False, "in_combination": True,
+                               "compute": staticmethod(keep)})()
     run_chunk(type(task)(task.model, task.design, task.n_replicates, task.simulation_stream,
                          task.statistics_stream, (probe,), task.options, task.first_counts))
     assert np.all(counts_seen[0][:, 0] == dataset.counts[0])

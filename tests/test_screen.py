@@ -378,18 +378,24 @@ def test_python_call_and_command_line_share_the_store(tables, reference, tmp_pat
     assert f"reusing {N_DATASETS} finished datasets" in capsys.readouterr().err
 
 
-def test_marginal_statistics_withheld_on_short_series(tmp_path, capsys):
-    """A slow series (rate x span ~ 6 correlation times) gets no p-value for the marginal
-    statistics, with the reason in the note; regrouping_invariance and combined keep theirs."""
+def test_marginal_statistics_withheld_on_short_series_with_a_stationary_start(tmp_path, capsys):
+    """A slow series (rate x span ~ 6 correlation times) tested with replicates from the
+    stationary law gets no p-value for the marginal statistics, with the reason in the note;
+    regrouping_invariance and combined keep theirs. Conditioned on the first sample (the
+    default) every statistic gets one."""
     folder = tmp_path / "slow"
     assert main(["simulate", "--out", str(folder), "--taxa", "15", "--samples", "30",
                  "--theta", "40", "--rate", "0.2", "--seed", "5"]) == 0
-    out = tmp_path / "res"
-    assert main(screen_args((folder / "counts.tsv", folder / "metadata.tsv"), out)) == 0
-    capsys.readouterr()
-    rows = {r["statistic"]: r for r in read_rows(out / "results.tsv")}
-    for name in ("stationary_divergence", "fluctuation_scaling", "dispersion_heterogeneity"):
-        assert rows[name]["p_value"] == "" and "correlation times" in rows[name]["note"]
-        assert rows[name]["observed"] != ""
-    assert rows["regrouping_invariance"]["p_value"] != ""
-    assert rows["combined"]["p_value"] != ""
+    tables = (folder / "counts.tsv", folder / "metadata.tsv")
+    marginal = ("stationary_divergence", "fluctuation_scaling", "dispersion_heterogeneity")
+    for start, withheld in (("stationary", True), ("first-sample", False)):
+        out = tmp_path / start
+        assert main(screen_args(tables, out) + ["--start", start]) == 0
+        capsys.readouterr()
+        rows = {r["statistic"]: r for r in read_rows(out / "results.tsv")}
+        for name in marginal:
+            assert (rows[name]["p_value"] == "") == withheld
+            assert ("correlation times" in rows[name]["note"]) == withheld
+            assert rows[name]["observed"] != ""
+        assert rows["regrouping_invariance"]["p_value"] != ""
+        assert rows["combined"]["p_value"] != ""

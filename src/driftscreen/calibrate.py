@@ -35,7 +35,7 @@ from joblib import Parallel, delayed
 
 from driftscreen import seeds
 from driftscreen.dataset import Dataset, Design
-from driftscreen.neutral.fit import NOISE_GRID, fit_batch, fitted_model
+from driftscreen.neutral.fit import CONDITIONED_MIN_SPAN, NOISE_GRID, fit_batch, fitted_model
 from driftscreen.neutral.model import (
     NeutralModel,
     NoiseOption,
@@ -61,9 +61,17 @@ PILOT_REPLICATES = 64
 #: Largest factor by which the bias correction may move an estimate.
 MAX_BIAS_FACTOR = 4.0
 #: Marginal statistics get a p-value only when a time series spans at least this many
-#: correlation times (fitted rate x span). In validation runs they kept their level from
-#: about 15 correlation times on and rejected neutral data far too often below 5-10.
-MIN_CORRELATION_TIMES = 15.0
+#: correlation times (fitted rate x span). With replicates started from the stationary law
+#: they kept their level from about 15 correlation times on and rejected neutral data far
+#: too often below 5-10. Conditioned on the first sample, replicates share the data's
+#: start, and the marginal statistics kept their level on series of a few correlation
+#: times (bench/null_choices.py: rejection rates 0.03-0.07 at 0.05 on series below 15
+#: correlation times); only a fit at the slowest admissible rate
+#: (:data:`driftscreen.neutral.fit.CONDITIONED_MIN_SPAN`), a series that barely moves
+#: from its start, withholds them.
+MIN_CORRELATION_TIMES = {"stationary": 15.0, "first-sample": CONDITIONED_MIN_SPAN * 1.01}
+#: The note of a statistic that reports a p-value but takes no part in ``combined``.
+NOT_COMBINED_NOTE = "not part of the combined test"
 #: Budget of count cells (replicates x samples x taxa) per chunk of replicates.
 CHUNK_CELLS = 2_000_000
 #: Significant digits of the numbers kept in the diagnostic tables of a result.
@@ -292,14 +300,16 @@ def correlation_times(model: NeutralModel, design: Design) -> float:
     return model.rate * float(design.times[-1] - design.times[0])
 
 
-def withheld_reason(stat: Statistic, model: NeutralModel, design: Design) -> str:
+def withheld_reason(stat: Statistic, model: NeutralModel, design: Design,
+                    options: NullOptions = NullOptions()) -> str:
     """Why a statistic gets no p-value on this design ('' if it gets one)."""
     coverage = correlation_times(model, design)
-    if not stat.marginal or coverage >= MIN_CORRELATION_TIMES:
+    needed = MIN_CORRELATION_TIMES[options.start]
+    if not stat.marginal or coverage >= needed:
         return ""
     return (f"no p-value: the series spans {coverage:.1f} correlation times (rate x span), "
-            f"fewer than the {MIN_CORRELATION_TIMES:g} needed to calibrate a comparison with "
-            "the stationary distribution; left out of the combined test")
+            f"fewer than the {needed:.3g} needed to calibrate a comparison with the stationary "
+            "distribution; left out of the combined test")
 
 
 def calibrate_statistics(plan: CalibrationPlan, null: np.ndarray) -> dict[str, StatisticResult]:
@@ -310,15 +320,17 @@ def calibrate_statistics(plan: CalibrationPlan, null: np.ndarray) -> dict[str, S
     for j, stat in enumerate(plan.statistics):
         column = null[:, j]
         finite = np.isfinite(column)
-        withheld = withheld_reason(stat, plan.model, plan.dataset.design)
+        withheld = withheld_reason(stat, plan.model, plan.dataset.design, plan.settings.null)
         pvalue = np.nan if withheld else bootstrap_pvalue(plan.observed[j], column,
                                                           stat.alternative)
         note = withheld or _statistic_note(int(np.count_nonzero(~finite)), column.size)
         if not np.isfinite(plan.observed[j]):
             note = "undefined for this dataset"
+        elif not (withheld or stat.in_combination):
+            note = "; ".join(filter(None, (note, NOT_COMBINED_NOTE)))
         results[stat.name] = StatisticResult(stat.name, float(plan.observed[j]), pvalue,
                                              column[finite], stat.alternative, note)
-        if not withheld:
+        if not withheld and stat.in_combination:
             observed_pvalues[j] = pvalue
             replicate_pvalues[:, j] = leave_one_out_pvalues(column, stat.alternative)
     results[COMBINED] = combine(observed_pvalues, replicate_pvalues)

@@ -59,7 +59,7 @@ NOISE_GRID = np.concatenate([[0.0], 1.0 / (1.0 + np.geomspace(1e6, 1.0, 49))])
 #: Technical noise is estimated only when successive samples are correlated at least this
 #: much under the multinomial fit (mean of exp(-rate dt)): otherwise the increments at
 #: lags one and two are both at the plateau, and drift and noise cannot be told apart.
-NOISE_MIN_CORRELATION = 0.2
+NOISE_MIN_CORRELATION = 0.4
 #: The relaxation estimate of p divides by 1 - e, e the read-weighted mean of
 #: exp(-rate (t - t_0)); e is capped here (the noise of p grows as 1 / (1 - e)).
 MAX_START_WEIGHT = 0.75

@@ -37,12 +37,17 @@ class Statistic(Protocol):
         samples explore little of that law, and the bootstrap calibration of such a
         statistic then hinges on the poorly identified rate; the calibration withholds its
         p-value there (see :data:`driftscreen.calibrate.MIN_CORRELATION_TIMES`).
+    in_combination:
+        True if its p-value enters ``combined``. A statistic whose calibration is not yet
+        established on every kind of neutral data the validation study covers reports its
+        p-value but stays out of the combination.
     """
 
     name: str
     needs_time: bool
     alternative: Alternative
     marginal: bool
+    in_combination: bool
 
     def compute(self, counts: np.ndarray, design: Design, fit: NullFit,
                 rng: np.random.Generator) -> np.ndarray:

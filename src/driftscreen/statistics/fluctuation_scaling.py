@@ -85,6 +85,7 @@ class FluctuationScaling:
     needs_time: ClassVar[bool] = False
     alternative: ClassVar[Alternative] = "two-sided"
     marginal: ClassVar[bool] = True
+    in_combination: ClassVar[bool] = True
 
     min_mean_count: float = 1.0
 

@@ -90,6 +90,7 @@ class RegroupingInvariance:
     needs_time: ClassVar[bool] = True
     alternative: ClassVar[Alternative] = "greater"
     marginal: ClassVar[bool] = False
+    in_combination: ClassVar[bool] = True
 
     n_groupings: int = 200
     min_group_reads: float = 5.0

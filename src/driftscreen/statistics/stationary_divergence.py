@@ -112,6 +112,7 @@ class StationaryDivergence:
     needs_time: ClassVar[bool] = False
     alternative: ClassVar[Alternative] = "greater"
     marginal: ClassVar[bool] = True
+    in_combination: ClassVar[bool] = True
 
     max_classes: int = 6
     samples_per_class: int = 8

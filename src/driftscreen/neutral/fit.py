@@ -60,9 +60,14 @@ NOISE_GRID = np.concatenate([[0.0], 1.0 / (1.0 + np.geomspace(1e6, 1.0, 49))])
 #: much under the multinomial fit (mean of exp(-rate dt)): otherwise the increments at
 #: lags one and two are both at the plateau, and drift and noise cannot be told apart.
 NOISE_MIN_CORRELATION = 0.4
+#: Fewest usable samples for estimating technical noise: the nugget is the difference of
+#: two noisy sums of increments, and on shorter series it mostly absorbed drift.
+NOISE_MIN_SAMPLES = 10
 #: The relaxation estimate of p divides by 1 - e, e the read-weighted mean of
 #: exp(-rate (t - t_0)); e is capped here (the noise of p grows as 1 / (1 - e)).
 MAX_START_WEIGHT = 0.75
+#: Floor of the relaxation estimate of p, as a share of the taxon's pooled read fraction.
+MIN_RELAXED_SHARE = 0.1
 
 
 @dataclass(frozen=True)
@@ -146,8 +151,8 @@ class _SeriesDesign:
 
     @property
     def noise_identifiable(self) -> bool:
-        """Separating noise from drift needs pairs two apart as well (four usable samples)."""
-        return self.second[0].size >= 2
+        """Separating noise from drift needs :data:`NOISE_MIN_SAMPLES` usable samples."""
+        return self.second[0].size >= NOISE_MIN_SAMPLES - 2
 
     def pairs(self, lag: int) -> tuple[np.ndarray, np.ndarray]:
         return self.adjacent if lag == 1 else self.second
@@ -281,15 +286,17 @@ def relaxation_composition(counts: np.ndarray, pooled: np.ndarray, design: Desig
     the pooled read fraction has expectation p (1 - e) + Y_0 e with
     e = sum_t w_t exp(-rate (t - t_0)), and p = (pooled - e Y_0) / (1 - e). A community
     still recovering from a disturbance at t_0 then gets the composition it recovers
-    towards, not its time mean. e is capped at :data:`MAX_START_WEIGHT`; negative entries
-    (taxa declining faster than the fit allows) are set to 0 and rows renormalised.
+    towards, not its time mean. e is capped at :data:`MAX_START_WEIGHT`; no taxon seen in
+    the series gets less than :data:`MIN_RELAXED_SHARE` of its pooled fraction (the
+    difference can be negative for a taxon declining faster than the fit allows), and rows
+    are renormalised.
     """
     weights = _weights(design)
     lags = design.times - design.times[0]
     start_weight = np.minimum(np.exp(-rate[:, None] * lags) @ weights, MAX_START_WEIGHT)
     first = counts[:, 0, :] / float(design.depths[0])
-    relaxed = np.maximum(pooled - start_weight[:, None] * first, 0.0)
-    relaxed /= (1.0 - start_weight)[:, None]
+    relaxed = (pooled - start_weight[:, None] * first) / (1.0 - start_weight)[:, None]
+    relaxed = np.maximum(relaxed, MIN_RELAXED_SHARE * pooled)
     totals = relaxed.sum(axis=1, keepdims=True)
     return np.where(totals > 0, relaxed / np.where(totals > 0, totals, 1.0), pooled)
 
@@ -314,7 +321,7 @@ def fitted_model(result: NullFit, design: Design, options: NullOptions = NullOpt
     """
     rate = None if result.rate is None else float(result.rate[index])
     flags = _fit_flags(design, rate, bool(result.clipped[index]), options.conditioned)
-    flags += _noise_flags(design, rate, options)
+    flags += _noise_flags(design, rate, float(result.noise[index]), options)
     return NeutralModel(result.p[index], float(result.theta[index]), rate,
                         float(result.noise[index]), flags)
 
@@ -696,9 +703,10 @@ def _sub_batch_size(shape: tuple[int, ...]) -> int:
     return max(1, SUB_BATCH_BYTES // (8 * 4 * n_samples * n_taxa))
 
 
-def _noise_flags(design: Design, rate: float | None, options: NullOptions) -> tuple[str, ...]:
+def _noise_flags(design: Design, rate: float | None, noise: float,
+                 options: NullOptions) -> tuple[str, ...]:
     """Plain-text notes on what the fit could say about technical noise."""
-    if options.noise != "estimate":
+    if options.noise != "estimate" or noise > 0:
         return ()
     if rate is None:
         return ("a snapshot design cannot separate technical noise from drift: reads are "
@@ -709,7 +717,7 @@ def _noise_flags(design: Design, rate: float | None, options: NullOptions) -> tu
         return ()
     return (f"technical noise not identified (successive samples correlate at "
             f"{correlation:.2f} under the fit, below {NOISE_MIN_CORRELATION:g}, or fewer than "
-            "four samples): reads are treated as multinomial",)
+            f"{NOISE_MIN_SAMPLES} samples): reads are treated as multinomial",)
 
 
 def _fit_flags(design: Design, rate: float | None, clipped: bool,

@@ -638,9 +638,11 @@ def false_positive_sections(neutral: pd.DataFrame, alpha: float) -> list[str]:
                   markdown_table(rejection_table(part, alpha), alpha), ""]
     parts += ["### All neutral collections pooled", "",
               markdown_table(rejection_table(neutral, alpha), alpha), "",
-              "Marginal statistics get no p-value when a time series covers fewer than 15 "
-              "correlation times (they are then also left out of `combined`), so their counts "
-              "of datasets are smaller.", "",
+              "Replicates of a time series are conditioned on its first sample. The "
+              "marginal statistics get no p-value only where the fit sits at the slowest "
+              "admissible rate (one correlation time over the span: a series that barely "
+              "leaves its start); `dispersion_heterogeneity` reports its p-value but is not "
+              "part of `combined`.", "",
               "### Pooled, by collection, generator, design, coverage, theta, taxa and "
               "samples (rate, with the number of p-values)", ""]
     for factor in ("collection", "generator", "design", "coverage", "theta_range", "taxa",
@@ -688,9 +690,7 @@ def reading_guide() -> list[str]:
         f"{MIN_POPULATION:,} needs no more than {MAX_GENERATIONS_PER_DAY:g} generations a "
         "day); 15 to 100 taxa, 20 to 200 samples (short: 10 to 25), depths 2,000 to "
         "20,000 with or without a spread, regular or irregular intervals; their sampling "
-        "times lie on the generation grid. Time series covering fewer than 15 correlation "
-        "times (rate x span) get no p-value from the marginal statistics, whose "
-        "calibration failed there in earlier runs.", ""]
+        "times lie on the generation grid.", ""]
 
 
 def report(neutral: pd.DataFrame, niche: pd.DataFrame, alpha: float, command: str,

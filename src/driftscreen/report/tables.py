@@ -28,7 +28,8 @@ RESULTS_COLUMNS = ("dataset", "statistic", "alternative", "observed", "null_mean
                    "n_samples", "n_taxa", "replicates", "influential_sample",
                    "p_value_without_sample", "note")
 PARAMETERS_COLUMNS = ("dataset", "design", "theta", "theta_low", "theta_high", "rate_per_day",
-                      "rate_low", "rate_high", "n_taxa", "n_taxa_dropped", "n_samples",
+                      "rate_low", "rate_high", "read_precision", "read_precision_low",
+                      "read_precision_high", "n_taxa", "n_taxa_dropped", "n_samples",
                       "depth_min", "depth_median", "depth_max", "span_days", "flags", "note")
 FDR_METHOD = ("Benjamini-Hochberg (1995) q-values per statistic across the datasets; "
               "undefined p-values are left out")
@@ -86,10 +87,10 @@ def results_tsv(run: ScreenResult) -> str:
 
 def parameter_row(outcome: DatasetOutcome) -> list[object]:
     summary, result = outcome.summary, outcome.result
-    estimates: list[object] = [None] * 6
+    estimates: list[object] = [None] * 9
     flags = ""
     if result is not None:
-        for offset, key in ((0, "theta"), (3, "rate")):
+        for offset, key in ((0, "theta"), (3, "rate"), (6, "precision")):
             if key in result.parameters:
                 p = result.parameters[key]
                 estimates[offset:offset + 3] = [p.estimate, p.low, p.high]

@@ -15,7 +15,9 @@ import numpy as np
 import pandas as pd
 
 from driftscreen import __version__
+from driftscreen.calibrate import MIN_CORRELATION_TIMES
 from driftscreen.influence import CANDIDATES, LEVEL
+from driftscreen.neutral.model import NullOptions
 from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
                                  StatisticResult)
 
@@ -86,7 +88,11 @@ def key_values(pairs: Sequence[tuple[str, str]]) -> list[str]:
 
 
 def parameter_rows(parameters: dict[str, ParameterEstimate]) -> list[list[str]]:
-    return [[p.name, number(p.estimate), f"{number(p.low)} .. {number(p.high)}", p.unit]
+    """Rows of the fitted null; an infinite read precision (no technical noise) reads 'inf'."""
+    def value(x: float) -> str:
+        return "inf" if x == math.inf else number(x)
+
+    return [[p.name, value(p.estimate), f"{value(p.low)} .. {value(p.high)}", p.unit]
             for p in parameters.values()]
 
 
@@ -597,6 +603,33 @@ def statistics_used(run: ScreenResult) -> list[str]:
     return names
 
 
+def null_reads_text(options: NullOptions) -> str:
+    """How the methods paragraph describes the reads of the null."""
+    if options.noise == "off":
+        return "multinomial. "
+    if options.noise == "estimate":
+        return ("Dirichlet-multinomial (Mosimann 1962, Biometrika 49:65) with a precision "
+                "estimated for time series from the variance between successive samples that "
+                "drift cannot explain (multinomial for snapshots). ")
+    return (f"Dirichlet-multinomial (Mosimann 1962, Biometrika 49:65) with precision "
+            f"{options.noise:g}. ")
+
+
+def null_start_text(options: NullOptions) -> str:
+    """How the methods paragraph describes the start of time-series replicates."""
+    if not options.conditioned:
+        return "Time-series replicates started from the stationary law. "
+    return ("Time-series replicates were conditioned on the observed first sample (started "
+            "from the posterior of the community given its reads) and relaxed towards the "
+            "metacommunity at the shared rate, whose composition was estimated as the point "
+            "every taxon relaxes to, so that a neutral community recovering from a "
+            "disturbance is not taken for a non-neutral one. ")
+
+
+def withheld_below(options: NullOptions) -> str:
+    return f"{MIN_CORRELATION_TIMES[options.start]:.3g}"
+
+
 def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
     """A paragraph for a manuscript, with B, R, the seed and the version actually used."""
     settings = run.settings
@@ -613,11 +646,13 @@ def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
         "model of community ecology (Hubbell 2001, The Unified Neutral Theory of "
         "Biodiversity and Biogeography; Etienne 2005, Ecol. Lett. 8:253), in which the "
         "relative abundances of taxa follow a Wright-Fisher diffusion with immigration from "
-        "a metacommunity and every sample is a multinomial draw of its sequencing depth. "
+        "a metacommunity and every sample is a draw of its sequencing depth, "
+        + null_reads_text(settings.null) +
         "The metacommunity composition, the immigration parameter theta and, for time "
         "series, the relaxation rate were estimated by sampling-corrected moment methods, "
         "and theta and the rate were corrected for the median bias of these estimators "
         "measured on 64 pilot neutral replicates. "
+        + null_start_text(settings.null) +
         f"For each dataset, B = {settings.replicates} neutral replicate datasets with the "
         "dataset's own sampling times and sequencing depths were simulated from the fitted "
         "model through the lines-of-descent representation of the diffusion's transition "
@@ -629,9 +664,10 @@ def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
         "Application), and p-values were (1 + number of replicates at least as extreme) / "
         f"(B + 1). The statistics were {statistics}. Statistics that compare each taxon's "
         "abundance distribution with the stationary law were given no p-value for time "
-        "series spanning fewer than 15 correlation times (fitted rate x span), where their "
-        "calibration is unreliable. Per dataset, their p-values were "
-        "combined by their harmonic mean p-value (Wilson 2019, Proc. Natl. Acad. Sci. USA "
+        f"series spanning fewer than {withheld_below(settings.null)} correlation times "
+        "(fitted rate x span), where their calibration is unreliable. Per dataset, the "
+        "p-values of all statistics but dispersion heterogeneity (reported, not combined) "
+        "were combined by their harmonic mean p-value (Wilson 2019, Proc. Natl. Acad. Sci. USA "
         "116:1195), calibrated against the replicates' leave-one-out p-values, and q-values "
         "were computed per statistic across datasets by the Benjamini-Hochberg procedure "
         "(Benjamini & Hochberg 1995, J. R. Stat. Soc. B 57:289). "

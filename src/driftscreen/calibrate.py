@@ -35,7 +35,13 @@ from joblib import Parallel, delayed
 
 from driftscreen import seeds
 from driftscreen.dataset import Dataset, Design
-from driftscreen.neutral.fit import CONDITIONED_MIN_SPAN, NOISE_GRID, fit_batch, fitted_model
+from driftscreen.neutral.fit import (
+    CONDITIONED_MIN_SPAN,
+    NOISE_GRID,
+    fit_batch,
+    fitted_model,
+    noise_identifiable,
+)
 from driftscreen.neutral.model import (
     NeutralModel,
     NoiseOption,
@@ -386,21 +392,23 @@ def parameter_interval(name: str, raw: float, simulated: float, replicates: np.n
 
 
 def precision_interval(raw: float, simulated: float, replicates: np.ndarray,
-                       options: NullOptions, design: Design) -> ParameterEstimate | None:
+                       options: NullOptions, design: Design,
+                       rate: float | None) -> ParameterEstimate | None:
     """Read precision C = 1/g - 1 with a 95% interval; None where it was not estimated.
 
     A fixed precision is reported as it is. An estimated one gets the basic bootstrap
     interval of g on its own scale (g = 0 is a value the estimator reaches, so not on the
     log scale), turned into C. When no noise was detected (g = 0) the estimate is inf and
     the lower bound comes from the 97.5% quantile of the replicates' g: reads at least
-    that precise are consistent with the data.
+    that precise are consistent with the data. Nothing is reported where the series
+    cannot tell noise from drift at its fitted ``rate``.
     """
     if options.fixed_noise is not None:
         if options.fixed_noise == 0:
             return None
         value = 1.0 / options.fixed_noise - 1.0
         return ParameterEstimate("precision", value, value, value, "fixed")
-    if not design.is_time_series:
+    if not design.is_time_series or (simulated <= 0 and not noise_identifiable(design, rate)):
         return None
     values = replicates[np.isfinite(replicates)]
     if values.size < 2:
@@ -522,7 +530,7 @@ def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityRes
         parameters["rate"] = parameter_interval("rate", raw.rate, model.rate, rates, "per day")
     precision = precision_interval(raw.noise, model.noise,
                                    np.concatenate([out.noise for out in outputs]),
-                                   plan.settings.null, plan.dataset.design)
+                                   plan.settings.null, plan.dataset.design, raw.rate)
     if precision is not None:
         parameters["precision"] = precision
     return NeutralityResult(

@@ -703,6 +703,15 @@ def _sub_batch_size(shape: tuple[int, ...]) -> int:
     return max(1, SUB_BATCH_BYTES // (8 * 4 * n_samples * n_taxa))
 
 
+def noise_identifiable(design: Design, rate: float | None) -> bool:
+    """Whether a series fitted at ``rate`` lets technical noise be told from drift."""
+    if rate is None:
+        return False
+    series = _series_design(design)
+    correlation = float(successive_correlation(np.array(rate), series.adjacent_gaps))
+    return series.noise_identifiable and correlation >= NOISE_MIN_CORRELATION
+
+
 def _noise_flags(design: Design, rate: float | None, noise: float,
                  options: NullOptions) -> tuple[str, ...]:
     """Plain-text notes on what the fit could say about technical noise."""
@@ -711,10 +720,10 @@ def _noise_flags(design: Design, rate: float | None, noise: float,
     if rate is None:
         return ("a snapshot design cannot separate technical noise from drift: reads are "
                 "treated as multinomial (give a read precision to include technical noise)",)
-    series = _series_design(design)
-    correlation = float(successive_correlation(np.array(rate), series.adjacent_gaps))
-    if series.noise_identifiable and correlation >= NOISE_MIN_CORRELATION:
+    if noise_identifiable(design, rate):
         return ()
+    correlation = float(successive_correlation(np.array(rate),
+                                               _series_design(design).adjacent_gaps))
     return (f"technical noise not identified (successive samples correlate at "
             f"{correlation:.2f} under the fit, below {NOISE_MIN_CORRELATION:g}, or fewer than "
             f"{NOISE_MIN_SAMPLES} samples): reads are treated as multinomial",)

@@ -5,8 +5,11 @@ Simulates N neutral time series (default 100) of 40 taxa x 100 daily samples wit
 with --jobs 1 and with --jobs 2 (loky), and prints both wall times, the speedup, the time
 per dataset and whether the two runs wrote byte-identical results.tsv. Worker processes
 use one BLAS thread each, so the speedup measures the parallel layout on a 2-core machine.
+With a third argument, an interpreter that has another driftscreen version installed (e.g.
+the previous release in its own venv), the same screen is also timed there with --jobs 2,
+and the ratio of the two wall times is printed, both measured in the same run.
 
-Usage: python bench/bench_screen.py [N_DATASETS] [REPLICATES]
+Usage: python bench/bench_screen.py [N_DATASETS] [REPLICATES] [BASELINE_PYTHON]
 """
 
 from __future__ import annotations
@@ -17,6 +20,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 os.environ.setdefault("OMP_NUM_THREADS", "1")
 os.environ.setdefault("MKL_NUM_THREADS", "1")
 
+import subprocess
 import sys
 import tempfile
 import time
@@ -46,7 +50,20 @@ def timed_screen(counts: Path, metadata: Path, out: Path, replicates: int, jobs:
     return time.perf_counter() - start
 
 
-def main(n_datasets: int, replicates: int) -> None:
+def baseline_wall(python: str, counts: Path, metadata: Path, out: Path,
+                  replicates: int) -> float:
+    """Wall time of the same screen, --jobs 2, under another interpreter's driftscreen."""
+    code = ("import sys, time; sys.path.insert(0, sys.argv[1]); import bench_screen as b; "
+            "from pathlib import Path; "
+            "print('WALL', b.timed_screen(Path(sys.argv[2]), Path(sys.argv[3]), "
+            "Path(sys.argv[4]), int(sys.argv[5]), 2))")
+    output = subprocess.run([python, "-c", code, str(Path(__file__).parent), str(counts),
+                             str(metadata), str(out), str(replicates)], check=True,
+                            capture_output=True, text=True).stdout
+    return float(output.split("WALL")[-1])
+
+
+def main(n_datasets: int, replicates: int, baseline: str | None = None) -> None:
     with tempfile.TemporaryDirectory() as temporary:
         folder = Path(temporary)
         counts, metadata = write_inputs(folder, n_datasets)
@@ -63,8 +80,13 @@ def main(n_datasets: int, replicates: int) -> None:
         same = ((folder / "jobs1" / "results.tsv").read_bytes()
                 == (folder / "jobs2" / "results.tsv").read_bytes())
         print(f"results.tsv identical: {same}")
+        if baseline:
+            other = baseline_wall(baseline, counts, metadata, folder / "baseline", replicates)
+            print(f"baseline ({baseline}) --jobs 2: {other:8.1f} s; this version / "
+                  f"baseline: {seconds[2] / other:.2f}")
 
 
 if __name__ == "__main__":
     main(int(sys.argv[1]) if len(sys.argv) > 1 else 100,
-         int(sys.argv[2]) if len(sys.argv) > 2 else 199)
+         int(sys.argv[2]) if len(sys.argv) > 2 else 199,
+         sys.argv[3] if len(sys.argv) > 3 else None)

@@ -5,7 +5,7 @@ metacommunity, depths and, for the mixed designs, parameters per dataset) and te
 :func:`driftscreen.calibrate.neutrality_test` (B replicates). Printed per design and
 statistic: the rejection rates at p <= 0.05 and p <= 0.2 with their binomial standard
 errors at the nominal level, sqrt(a (1 - a) / N) (a valid test rejects at most a; the
-target for 0.05 is 0.02-0.08), the number of datasets without a p-value (withheld or
+target for 0.05 is 0.03-0.07), the number of datasets without a p-value (withheld or
 undefined), and the correlation across datasets of the observed statistic with the log of
 the fitted theta (a statistic whose null law moves with theta is only approximately
 calibrated by a bootstrap at an estimated theta). A pooled row sums all designs.

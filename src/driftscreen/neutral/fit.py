@@ -56,10 +56,12 @@ SUB_BATCH_BYTES = 96 * 2**20
 #: Grid of the technical noise g = 1/(1 + C) searched when it is estimated: 0 and
 #: log-spaced values from C = 10^6 down to C = 1.
 NOISE_GRID = np.concatenate([[0.0], 1.0 / (1.0 + np.geomspace(1e6, 1.0, 49))])
-#: Technical noise is estimated only when successive samples are correlated at least this
-#: much under the multinomial fit (mean of exp(-rate dt)): otherwise the increments at
-#: lags one and two are both at the plateau, and drift and noise cannot be told apart.
-NOISE_MIN_CORRELATION = 0.4
+#: Technical noise is kept only when successive samples are correlated at least this much
+#: under the fit with noise (mean of exp(-rate dt)): otherwise the increments at every lag
+#: are at the plateau, and drift and noise cannot be told apart.
+NOISE_MIN_CORRELATION = 0.2
+#: Lags (in successive usable samples) whose increments the noise estimate uses.
+NOISE_LAGS = 4
 #: Fewest usable samples for estimating technical noise: the nugget is the difference of
 #: two noisy sums of increments, and on shorter series it mostly absorbed drift.
 NOISE_MIN_SAMPLES = 10
@@ -79,7 +81,7 @@ class _MomentTerms:
 
         E[Q]/Pi   = v q_drift + (1 - v)(g q_one + (1 - g) q_depth)
         E[H]/Pi   = 1 - v h_drift - (1 - v)(g h_one + (1 - g) h_depth)
-        E[D_l]/Pi = v pair_drift_l + 2 g (1 - v) m_l,          l = 1, 2
+        E[D_l]/Pi = v pair_drift_l + 2 g (1 - v) m_l,          l = 1 .. NOISE_LAGS
 
     Q is the spread about the fitted mean path, H = sum_i p-hat_i (1 - p-hat_i), D_l the
     sampling-corrected squared increments between usable samples l apart (minus the
@@ -92,7 +94,7 @@ class _MomentTerms:
     h_drift: np.ndarray
     h_one: np.ndarray
     h_depth: np.ndarray
-    pair_drift: tuple[np.ndarray, np.ndarray]
+    pair_drift: tuple[np.ndarray, ...]
 
     def v_from_spread(self, ratio_q: np.ndarray, noise: np.ndarray) -> np.ndarray:
         """v solving E[Q]/E[H] = ratio_q at every grid rate (the note's ratio form)."""
@@ -125,7 +127,7 @@ class _ConditionalPath:
     start_weight: np.ndarray              # (G,)
     alpha: np.ndarray                     # (G, T)
     beta: np.ndarray                      # (G, T)
-    trend: tuple[np.ndarray, np.ndarray]  # (G,) each
+    trend: tuple[np.ndarray, ...]         # (G,) per lag
 
 
 @dataclass(frozen=True)
@@ -137,12 +139,16 @@ class _SeriesDesign:
     conditioned on the first sample.
     """
 
-    adjacent: tuple[np.ndarray, np.ndarray]  # sample indices (s, t) of successive usable samples
-    second: tuple[np.ndarray, np.ndarray]    # usable samples two apart
+    lag_pairs: tuple[tuple[np.ndarray, np.ndarray], ...]  # usable samples l = 1, 2, .. apart
     adjacent_gaps: np.ndarray  # days between successive usable samples
     log_grid: np.ndarray       # (G,) grid of log rate over rate_bounds(design)
     terms: _MomentTerms
     path: _ConditionalPath | None
+
+    @property
+    def adjacent(self) -> tuple[np.ndarray, np.ndarray]:
+        """Successive usable samples (s, t)."""
+        return self.lag_pairs[0]
 
     @property
     def identifiable(self) -> bool:
@@ -152,10 +158,7 @@ class _SeriesDesign:
     @property
     def noise_identifiable(self) -> bool:
         """Separating noise from drift needs :data:`NOISE_MIN_SAMPLES` usable samples."""
-        return self.second[0].size >= NOISE_MIN_SAMPLES - 2
-
-    def pairs(self, lag: int) -> tuple[np.ndarray, np.ndarray]:
-        return self.adjacent if lag == 1 else self.second
+        return self.adjacent[0].size >= NOISE_MIN_SAMPLES - 1
 
 
 @dataclass(frozen=True)
@@ -382,7 +385,10 @@ def _series_fit(counts: np.ndarray, p: np.ndarray, design: Design, series: _Seri
     Y(1 - Y)/(n - 1) removes multinomial noise exactly, and Dirichlet-multinomial reads
     leave g X (1 - X) per sample: the nugget 2 g (1 - v) Pi, the same at every lag. For
     each rate on a grid the spread equation gives v; the rate is where the D_1 equation
-    holds; g is where the D_2 equation holds as well. Successive samples carry most of
+    holds. With technical noise estimated, g and the rate come jointly from the increments
+    at lags 1 .. NOISE_LAGS (:func:`_noise_estimate`): where the noise dominates the
+    increments, the lag-1 equation alone would turn a small error in g into a large one in
+    the rate. Successive samples carry most of
     the information on the rate and the variance about the mean carries the plateau.
     Least squares on the variogram over all pairs (the note's suggestion) is less
     efficient because its many long-lag pairs are noisy and strongly correlated: in
@@ -395,32 +401,35 @@ def _series_fit(counts: np.ndarray, p: np.ndarray, design: Design, series: _Seri
     e_t = exp(-rate (t - t_0)), so Q, H and the trend part of D_l are evaluated on the
     path of every grid rate (:func:`_observed_ratios`).
     """
-    ratio_q, ratio_1, ratio_2 = _observed_ratios(counts, p, design, series)
+    ratio_q, ratios = _observed_ratios(counts, p, design, series)
     noise = np.full(counts.shape[0], fixed_noise or 0.0)
     if not series.identifiable:
         last = series.log_grid.size - 1
         crossing = _Crossing(np.full(noise.size, last), np.zeros(noise.size))
     else:
-        crossing = _rate_crossing(ratio_q, ratio_1, series, noise)
+        crossing = _rate_crossing(ratio_q, ratios[0], series, noise)
         if fixed_noise is None and series.noise_identifiable:
-            rate = np.exp(crossing.at(series.log_grid))
-            rows = successive_correlation(rate, series.adjacent_gaps) >= NOISE_MIN_CORRELATION
-            if rows.any():
-                noise[rows] = _noise_estimate(ratio_q[rows], ratio_1[rows], ratio_2[rows],
-                                              series)
-                refit = _rate_crossing(ratio_q[rows], ratio_1[rows], series, noise[rows])
-                crossing.low[rows], crossing.fraction[rows] = refit.low, refit.fraction
+            noise, rate_index = _noise_estimate(ratio_q, ratios, series)
+            joint = noise > 0
+            crossing.low[joint], crossing.fraction[joint] = rate_index[joint], 0.0
+        rate = np.exp(crossing.at(series.log_grid))
+        lost = (noise > 0) & (successive_correlation(rate, series.adjacent_gaps)
+                              < NOISE_MIN_CORRELATION)
+        if fixed_noise is None and lost.any():
+            noise[lost] = 0.0
+            refit = _rate_crossing(ratio_q[lost], ratios[0][lost], series, noise[lost])
+            crossing.low[lost], crossing.fraction[lost] = refit.low, refit.fraction
     v = crossing.at(series.terms.v_from_spread(ratio_q, noise[:, None]))
     return v, np.exp(crossing.at(series.log_grid)), noise
 
 
-def _observed_ratios(counts: np.ndarray, p: np.ndarray, design: Design,
-                     series: _SeriesDesign) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Q/H, D_1/H and D_2/H of every table, ``(R, 1)`` or, conditioned, ``(R, G)``."""
+def _observed_ratios(counts: np.ndarray, p: np.ndarray, design: Design, series: _SeriesDesign
+                     ) -> tuple[np.ndarray, list[np.ndarray]]:
+    """Q/H and D_l/H (l = 1, 2, ..) of every table, ``(R, 1)`` or, conditioned, ``(R, G)``."""
     depths = design.depths.astype(np.float64)
     proportions = counts / depths[:, None]
-    increments = [_pair_increments(proportions, depths, series.pairs(lag))[:, None]
-                  for lag in (1, 2)]
+    increments = [_pair_increments(proportions, depths, pairs)[:, None]
+                  for pairs in series.lag_pairs]
     w = _weights(design)
     if series.path is None:
         hetero = (p * (1.0 - p)).sum(axis=1)[:, None]
@@ -441,7 +450,7 @@ def _observed_ratios(counts: np.ndarray, p: np.ndarray, design: Design,
         departure = (pp - 2.0 * pf + ff)[:, None] / (1.0 - e) ** 2      # ||Y_0 - p-hat||^2
         increments = [d - departure * trend for d, trend in zip(increments, path.trend)]
     with np.errstate(divide="ignore", invalid="ignore"):
-        return spread / hetero, increments[0] / hetero, increments[1] / hetero
+        return spread / hetero, [d / hetero for d in increments]
 
 
 def _rate_crossing(ratio_q: np.ndarray, ratio_1: np.ndarray, series: _SeriesDesign,
@@ -476,31 +485,52 @@ def _pair_increments(proportions: np.ndarray, depths: np.ndarray,
     return np.sum(squared - noise[:, first] - noise[:, second], axis=(1, 2))
 
 
-def _noise_estimate(ratio_q: np.ndarray, ratio_1: np.ndarray, ratio_2: np.ndarray,
-                    series: _SeriesDesign) -> np.ndarray:
-    """g where the lag-2 equation holds once v and the rate solve the others, ``(R,)``.
+def _noise_estimate(ratio_q: np.ndarray, ratios: list[np.ndarray],
+                    series: _SeriesDesign) -> tuple[np.ndarray, np.ndarray]:
+    """g-hat and the rate's grid index of every table, from the increments at lags 1 ..
+    NOISE_LAGS (the nugget of the sampling-corrected variogram), ``(R,)`` each.
 
-    For every g on :data:`NOISE_GRID` the rate solving the lag-1 equation is found; more
-    noise leaves less of the lag-1 increment to drift, so the predicted lag-2 increment
-    falls with g, until v reaches its lower bound (the noise alone would explain the
-    spread) and the prediction rises again. g-hat is where the prediction first meets the
-    observed lag-2 increment (0 when even g = 0 predicts too little), or where it comes
-    closest when it never meets it. Values of g that push the rate to the lower end of its
-    range (a drift so slow it is a straight trend, with the noise explaining everything
-    else) are not solutions.
+    For every g on :data:`NOISE_GRID` and every grid rate, the spread equation gives v and
+    the increment equations predict D_l; g-hat is the g of the pair (rate, g) whose
+    predictions are closest to the observed increments in relative squared error, each lag
+    weighted by its number of pairs. Three moments alone (spread, lags 1 and 2) cannot
+    tell fast drift without noise from slow drift with noise; the longer lags can: fast
+    drift saturates within a lag or two, slow drift keeps rising while the nugget stays.
+    Grid points where v leaves (0, 1) are not solutions.
     """
-    gap = np.empty((ratio_q.shape[0], NOISE_GRID.size))
-    n_second = series.second[0].size
+    losses = np.empty((ratio_q.shape[0], NOISE_GRID.size))
+    rate_index = np.empty((ratio_q.shape[0], NOISE_GRID.size), dtype=np.int64)
     for j, g in enumerate(NOISE_GRID):
         noise = np.full((ratio_q.shape[0], 1), g)
-        crossing = _rate_crossing(ratio_q, ratio_1, series, noise[:, 0])
-        v = np.clip(series.terms.v_from_spread(ratio_q, noise), V_MIN, V_MAX)
-        lag_2 = crossing.at(ratio_2 - series.terms.increments(2, n_second, v, noise))
-        interior = (crossing.low > 0) | (crossing.fraction > 0)
-        gap[:, j] = np.where(interior, lag_2, np.nan)
-    gap = np.nan_to_num(gap, nan=-np.inf)
-    closest = NOISE_GRID[np.argmax(gap, axis=1)]
-    return np.where((gap >= 0).any(axis=1), _crossing(gap).at(NOISE_GRID), closest)
+        v = series.terms.v_from_spread(ratio_q, noise)
+        valid = (v >= V_MIN) & (v <= V_MAX)
+        v = np.clip(v, V_MIN, V_MAX)
+        loss = np.zeros_like(v)
+        for lag, (ratio, pairs) in enumerate(zip(ratios, series.lag_pairs), start=1):
+            predicted = series.terms.increments(lag, pairs[0].size, v, noise)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                loss += pairs[0].size * (ratio / predicted - 1.0) ** 2
+        loss = np.where(valid & np.isfinite(loss), loss, np.inf)
+        rate_index[:, j] = np.argmin(loss, axis=1)
+        losses[:, j] = loss[np.arange(loss.shape[0]), rate_index[:, j]]
+    best = np.argmin(losses, axis=1)
+    return _refined_minimum(losses), rate_index[np.arange(best.size), best]
+
+
+def _refined_minimum(losses: np.ndarray) -> np.ndarray:
+    """g at the smallest loss of each row, refined by a parabola in log g through the best
+    grid point and its neighbours (0 stays 0; NaN-free: rows without a finite loss get 0)."""
+    best = np.argmin(losses, axis=1)
+    estimate = NOISE_GRID[best]
+    inner = (best > 1) & (best < NOISE_GRID.size - 1)       # index 0 is g = 0
+    rows = np.flatnonzero(inner & np.isfinite(losses.min(axis=1)))
+    left, centre, right = (losses[rows, best[rows] + k] for k in (-1, 0, 1))
+    curvature = left - 2.0 * centre + right
+    with np.errstate(divide="ignore", invalid="ignore"):
+        shift = np.clip(np.nan_to_num(0.5 * (left - right) / curvature), -0.5, 0.5)
+    step = np.log(NOISE_GRID[2] / NOISE_GRID[1])
+    estimate[rows] = np.exp(np.log(estimate[rows]) + np.where(curvature > 0, shift, 0.0) * step)
+    return estimate
 
 
 def _crossing(gap: np.ndarray, last: bool = False) -> _Crossing:
@@ -577,16 +607,18 @@ _SERIES_CACHE: dict[tuple, _SeriesDesign] = {}
 
 def _new_series_design(design: Design, conditioned: bool) -> _SeriesDesign:
     usable = np.flatnonzero(design.depths >= 2)
-    adjacent, second = (usable[:-1], usable[1:]), (usable[:-2], usable[2:])
+    lag_pairs = tuple((usable[:-lag], usable[lag:]) for lag in range(1, NOISE_LAGS + 1)
+                      if usable.size > lag)
+    adjacent = lag_pairs[0]
     low, high = rate_bounds(design, conditioned)
     n_grid = int(np.ceil(np.log(high / low) / LOG_RATE_STEP)) + 1
     log_grid = np.linspace(np.log(low), np.log(high), n_grid)
     gaps = design.times[adjacent[1]] - design.times[adjacent[0]]
     if conditioned:
-        terms, path = _conditional_terms(design, np.exp(log_grid), (adjacent, second))
+        terms, path = _conditional_terms(design, np.exp(log_grid), lag_pairs)
     else:
-        terms, path = _stationary_terms(design, np.exp(log_grid), (adjacent, second)), None
-    return _SeriesDesign(adjacent, second, gaps, log_grid, terms, path)
+        terms, path = _stationary_terms(design, np.exp(log_grid), lag_pairs), None
+    return _SeriesDesign(lag_pairs, gaps, log_grid, terms, path)
 
 
 def _stationary_terms(design: Design, rates: np.ndarray,

@@ -163,7 +163,7 @@ class _SeriesDesign:
 
 @dataclass(frozen=True)
 class _Crossing:
-    """Where a gap over the rate grid first turns non-negative, per row: cell and fraction."""
+    """A position on a grid per row (a crossing or a minimum): grid cell and fraction."""
 
     low: np.ndarray        # (R,) index of the grid point below the crossing
     fraction: np.ndarray   # (R,) position between low and low + 1

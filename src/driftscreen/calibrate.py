@@ -60,6 +60,7 @@ from driftscreen.statistics.base import Statistic
 from driftscreen.statistics.combination import harmonic_mean_pvalue
 from driftscreen.statistics.fluctuation_scaling import taylor_fit
 from driftscreen.statistics.registry import default_statistics
+from driftscreen.taxon_scan import TaxonScan, scan_table, taxon_scan_for
 
 COMBINED = "combined"
 #: Neutral replicates in the pilot that measures the bias of the theta and rate estimators.
@@ -112,16 +113,19 @@ class ChunkTask:
     statistics: tuple[Statistic, ...]
     options: NullOptions = NullOptions()
     first_counts: np.ndarray | None = None
+    taxon_scan: TaxonScan | None = None
 
 
 @dataclass(frozen=True)
 class ChunkOutput:
-    """Statistics (n, S) and re-fitted parameters of one chunk of replicates."""
+    """Statistics (n, S), re-fitted parameters and per-taxon measures (n, M, G) of one
+    chunk of replicates."""
 
     values: np.ndarray
     theta: np.ndarray
     rate: np.ndarray | None
     noise: np.ndarray | None = None
+    taxa: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -135,6 +139,8 @@ class CalibrationPlan:
     statistics: tuple[Statistic, ...]
     observed: np.ndarray
     tasks: tuple[ChunkTask, ...]
+    taxon_scan: TaxonScan | None = None
+    observed_taxa: np.ndarray | None = None
 
     @property
     def raw_model(self) -> NeutralModel:
@@ -238,14 +244,16 @@ def plan_calibration(dataset: Dataset, settings: CalibrationSettings,
     model = bias_corrected_model(fitted_model(observed_fit, design, options), design,
                                  seeds.substream(root, seeds.PILOT),
                                  bool(observed_fit.clipped[0]), options, first_counts)
+    scan = taxon_scan_for(observed_fit.p[0], float(observed_fit.theta[0]), design)
     size = chunk_size_for(design, dataset.n_taxa)
     starts = range(0, settings.replicates, size)
     tasks = tuple(
         ChunkTask(model, design, min(size, settings.replicates - start),
                   seeds.substream(root, seeds.SIMULATION, index), statistics_stream, statistics,
-                  options, first_counts)
+                  options, first_counts, scan)
         for index, start in enumerate(starts))
-    return CalibrationPlan(dataset, settings, observed_fit, model, statistics, observed, tasks)
+    return CalibrationPlan(dataset, settings, observed_fit, model, statistics, observed, tasks,
+                           scan, scan.measure(dataset.counts[None], design, observed_fit)[0])
 
 
 def run_chunk(task: ChunkTask) -> ChunkOutput:
@@ -255,7 +263,9 @@ def run_chunk(task: ChunkTask) -> ChunkOutput:
     refit = fit_batch(counts, task.design, task.options)
     values = compute_statistics(task.statistics, counts, task.design, refit,
                                 task.statistics_stream)
-    return ChunkOutput(values, refit.theta, refit.rate, refit.noise)
+    taxa = None if task.taxon_scan is None else task.taxon_scan.measure(counts, task.design,
+                                                                         refit)
+    return ChunkOutput(values, refit.theta, refit.rate, refit.noise, taxa)
 
 
 def extremeness(values: np.ndarray, center: np.ndarray, alternative: str) -> np.ndarray:
@@ -537,7 +547,17 @@ def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityRes
         dataset=summarize_dataset(plan.dataset), model=model,
         statistics=calibrate_statistics(plan, null), parameters=parameters,
         replicates=plan.settings.replicates, seed=plan.settings.seed, notes=model.flags,
-        diagnostics=observed_diagnostics(plan))
+        diagnostics=observed_diagnostics(plan), taxa=taxon_results(plan, outputs))
+
+
+def taxon_results(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> pd.DataFrame | None:
+    """The per-taxon scan of the observed data against every replicate, made storable."""
+    if plan.taxon_scan is None or any(out.taxa is None for out in outputs):
+        return None
+    dataset = plan.dataset
+    table = scan_table(plan.taxon_scan, dataset.counts, dataset.design, plan.observed_taxa,
+                       np.concatenate([out.taxa for out in outputs]))
+    return storable_table(table, dataset.taxa)
 
 
 def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int = 200,

@@ -149,7 +149,9 @@ class NeutralityResult:
     observed data, made storable by :func:`driftscreen.calibrate.storable_table` (taxon
     ids instead of column indices, numbers in 6 significant digits); empty if none.
     ``influence`` is the most influential sample of a rejected dataset, ``None`` when the
-    dataset was not rejected or the influence was not computed.
+    dataset was not rejected or the influence was not computed. ``taxa`` is the calibrated
+    per-taxon scan (:mod:`driftscreen.taxon_scan`), one row per taxon or pool of rare
+    taxa, made storable like the diagnostics; ``None`` where it was not computed.
     """
 
     dataset: DatasetSummary
@@ -161,6 +163,7 @@ class NeutralityResult:
     notes: tuple[str, ...] = field(default=())
     diagnostics: dict[str, pd.DataFrame] = field(default_factory=dict)
     influence: SampleInfluence | None = None
+    taxa: pd.DataFrame | None = None
 
     def __getitem__(self, name: str) -> StatisticResult:
         return self.statistics[name]

@@ -188,14 +188,15 @@ def result_to_dict(result: NeutralityResult) -> dict[str, Any]:
         "diagnostics": {name: table_to_dict(table)
                         for name, table in result.diagnostics.items()},
         "influence": influence_to_dict(result.influence),
+        "taxa": None if result.taxa is None else table_to_dict(result.taxa),
     }
 
 
 def result_from_dict(data: Mapping[str, Any]) -> NeutralityResult:
     """Inverse of :func:`result_to_dict` (statistics and parameters keep their order).
 
-    Records written before results carried diagnostics or an influential sample read
-    back with none.
+    Records written before results carried diagnostics, an influential sample or a
+    per-taxon scan read back with none.
     """
     statistics = [statistic_from_dict(s) for s in data["statistics"]]
     parameters = [parameter_from_dict(p) for p in data["parameters"]]
@@ -205,4 +206,5 @@ def result_from_dict(data: Mapping[str, Any]) -> NeutralityResult:
         dataset=summary_from_dict(data["dataset"]), model=model_from_dict(data["model"]),
         statistics={s.name: s for s in statistics}, parameters={p.name: p for p in parameters},
         replicates=int(data["replicates"]), seed=int(data["seed"]), notes=tuple(data["notes"]),
-        diagnostics=diagnostics, influence=influence_from_dict(data.get("influence")))
+        diagnostics=diagnostics, influence=influence_from_dict(data.get("influence")),
+        taxa=None if data.get("taxa") is None else table_from_dict(data["taxa"]))

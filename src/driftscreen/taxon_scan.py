@@ -1,0 +1,356 @@
+"""Which taxa depart from neutrality: a calibrated per-taxon scan.
+
+Basis. The neutral occupancy-abundance prediction of Sloan et al. (2006, Environ.
+Microbiol. 8:732-740, "Quantifying the roles of immigration and chance in shaping
+prokaryote community structure"), applied taxon by taxon as in Burns et al. (2016, ISME J.
+10:655-664): under neutrality a taxon's share of the community is Beta(theta p_i,
+theta (1 - p_i)) (the marginal of the stationary Dirichlet(theta p); design note,
+section 1), so its reads in a sample of depth n are BetaBinomial(n, theta p_i,
+theta (1 - p_i)) and the taxon is detected in that sample with probability
+
+    P(detected) = 1 - B(theta p_i, theta (1 - p_i) + n) / B(theta p_i, theta (1 - p_i)).
+
+With Dirichlet-multinomial reads of precision C (design note, section 8) the reads'
+composition Dirichlet(C X) is replaced by the Dirichlet(theta_0 p) with its mean and
+variance, 1/(1 + theta_0) = v + (1 - v)/(1 + C) (:func:`driftscreen.neutral.model.read_theta`),
+as the statistics do; the formula above is then taken at theta_0.
+
+Per taxon (rare taxa pooled, below) the scan measures, on the data and on every re-fitted
+neutral replicate:
+
+* **occupancy**: the share of samples with at least one read minus its neutral
+  expectation, the mean over samples of P(detected) at each sample's depth under the
+  fitted null (effect > 0: "more frequent", < 0: "less frequent");
+* **variability**: the taxon's sampling-corrected variance of relative abundance over
+  samples (:func:`driftscreen.statistics.fluctuation_scaling.taxon_moments`) divided by
+  the neutral p (1 - p)/(1 + theta) ("more variable" / "less variable");
+* **persistence** (time series): the taxon's own lag correlation between successive
+  samples, 1 - D/(2 V) with D the mean sampling-corrected squared increment and V the
+  corrected variance, minus the shared neutral value, the mean of exp(-rate dt) over
+  successive samples ("more persistent" / "less persistent").
+
+The expectations are exact only at stationarity; for a time series conditioned on its
+first sample, and for the estimation of p, theta, the rate and the noise, the parametric
+bootstrap calibrates the effects: every replicate is re-fitted and measured in the same
+way, so each taxon has its own null distribution of each effect.
+
+Rare taxa are pooled as the statistics pool them (:mod:`driftscreen.statistics.pooling`):
+taxa are merged, in order of increasing fitted p, into groups of shape theta P_G >= 1,
+each of which is neutral in its own right. The groups are fixed by the observed fit and
+kept for every replicate, so that a row of the scan is the same set of taxa in the data
+and in the replicates.
+
+p-values. Each effect gets a two-sided bootstrap p-value against the taxon's own
+replicates, (1 + #{replicates at least as far from their median}) / (B + 1). A taxon's
+combined p-value is that of -log10 of the harmonic mean p-value (Wilson 2019, PNAS
+116:1195) of its effects' p-values, calibrated against the same quantity of the
+replicates' leave-one-out p-values, pooled over every taxon of the dataset: each taxon's
+own B replicates cannot give p-values below 1/(B + 1), too coarse for a
+Benjamini-Hochberg adjustment over tens or hundreds of taxa, whereas leave-one-out
+p-values are uniform for every taxon, so their combinations are comparable across taxa.
+Benjamini-Hochberg (1995) q-values are taken across the taxa of the dataset.
+
+Across datasets (:func:`across_datasets`), a taxon's combined p-values from the datasets
+where it is present (on its own, not in a pool) are combined by the Cauchy combination
+(Liu & Xie 2020, J. Am. Stat. Assoc. 115:393), valid for independent datasets and robust
+to dependence, and q-values are taken across taxa.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy import special, stats
+
+from driftscreen.dataset import Design
+from driftscreen.fdr import benjamini_hochberg
+from driftscreen.neutral.model import NullFit, read_theta
+from driftscreen.statistics.combination import cauchy_combination, harmonic_mean_pvalue
+from driftscreen.statistics.fluctuation_scaling import taxon_moments
+from driftscreen.statistics.pooling import group_ids
+
+#: Taxa with theta p_i below this are tested in pools of total shape at least this.
+MIN_SHAPE = 1.0
+#: Level at which a taxon is reported as departing, and its effects named in its direction.
+LEVEL = 0.05
+#: Rows of the per-replicate measures: observed occupancy, expected occupancy, variance
+#: ratio, own lag correlation, neutral lag correlation (the last two for time series).
+OCCUPANCY, EXPECTED, VARIANCE_RATIO, LAG_CORRELATION, NEUTRAL_LAG = range(5)
+#: Words for an effect above and below its neutral value, by statistic.
+DIRECTIONS = {"occupancy": ("more frequent", "less frequent"),
+              "variability": ("more variable", "less variable"),
+              "persistence": ("more persistent", "less persistent")}
+#: Quantiles of the replicates' occupancy that bound the neutral band.
+BAND = (0.025, 0.975)
+
+
+@dataclass(frozen=True)
+class ScanUnits:
+    """The taxa and pools of rare taxa the scan tests, contiguous in ``order``.
+
+    ``order`` lists taxon indices by increasing fitted p; unit u holds the taxa
+    ``order[starts[u]:starts[u + 1]]``, its most abundant member last.
+    """
+
+    order: np.ndarray
+    starts: np.ndarray
+
+    @property
+    def members(self) -> np.ndarray:
+        """Taxa per unit, ``(G,)``."""
+        return np.diff(np.append(self.starts, self.order.size))
+
+    @property
+    def lead(self) -> np.ndarray:
+        """Index of each unit's most abundant taxon, ``(G,)``."""
+        return self.order[np.append(self.starts[1:], self.order.size) - 1]
+
+    def sums(self, values: np.ndarray) -> np.ndarray:
+        """Sums over each unit's taxa along the last axis: ``(..., K)`` -> ``(..., G)``."""
+        return np.add.reduceat(np.asarray(values, dtype=np.float64)[..., self.order],
+                               self.starts, axis=-1)
+
+
+def scan_units(p: np.ndarray, theta: float, min_shape: float = MIN_SHAPE) -> ScanUnits:
+    """Taxa with shape theta p_i >= ``min_shape`` alone, rarer ones pooled (``pooling``)."""
+    order = np.argsort(p, kind="stable")
+    ids = group_ids((theta * p[order])[None], min_shape)[0]
+    starts = np.flatnonzero(np.concatenate([[True], ids[1:] != ids[:-1]]))
+    return ScanUnits(order, starts)
+
+
+def detection_probability(depths: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """1 - BetaBinomial(n, a, b).pmf(0) = 1 - B(a, b + n)/B(a, b), broadcast over inputs.
+
+    In log-gamma form, Gamma(b + n) Gamma(a + b) / (Gamma(b) Gamma(a + b + n)); a = 0
+    (an absent taxon) gives 0 and b = 0 (the whole community) gives 1.
+    """
+    n = np.asarray(depths, dtype=np.float64)
+    a, b = np.asarray(a, dtype=np.float64), np.asarray(b, dtype=np.float64)
+    safe_b = np.where(b > 0, b, 1.0)
+    log_zero = (special.gammaln(safe_b + n) - special.gammaln(safe_b)
+                + special.gammaln(a + safe_b) - special.gammaln(a + safe_b + n))
+    detected = -np.expm1(log_zero)
+    return np.where(a <= 0, 0.0, np.where(b <= 0, 1.0, detected))
+
+
+def expected_occupancy(depths: np.ndarray, p: np.ndarray, theta: np.ndarray,
+                       noise: np.ndarray) -> np.ndarray:
+    """Mean over samples of the neutral detection probability, ``(R, G)``.
+
+    ``p`` is ``(R, G)``, ``theta`` and ``noise`` (g = 1/(1 + C)) are ``(R,)``; with noise
+    the shapes are taken at theta_0 (module docstring). Distinct depths are evaluated once.
+    """
+    unique, counts = np.unique(np.asarray(depths, dtype=np.float64), return_counts=True)
+    theta0 = read_theta(theta, noise)[:, None, None]
+    shares = p[:, :, None]
+    detected = detection_probability(unique[None, None, :], theta0 * shares,
+                                     theta0 * (1.0 - shares))
+    return detected @ (counts / counts.sum())
+
+
+def lag_correlations(counts: np.ndarray, depths: np.ndarray, noise: np.ndarray,
+                     variance: np.ndarray) -> np.ndarray:
+    """1 - D / (2 V) per table and unit, ``(R, G)``; NaN where V <= 0.
+
+    D is the mean over successive samples of (Y_t+1 - Y_t)^2 less both samples' sampling
+    variances, estimated as in :func:`taxon_moments` (Y (1 - Y)/(n - 1), scaled for the
+    technical noise g); V the corrected variance.
+    """
+    depths = np.asarray(depths, dtype=np.float64)
+    relative = counts / depths[:, None]
+    g = noise[:, None]
+    scale = depths * (g + (1.0 - g) / depths) / (1.0 - g) / np.maximum(depths - 1.0, 1.0)
+    sampling = relative * (1.0 - relative) * scale[:, :, None]
+    steps = np.diff(relative, axis=1)
+    increments = (steps * steps - sampling[:, 1:] - sampling[:, :-1]).mean(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(variance > 0, 1.0 - increments / (2.0 * variance), np.nan)
+
+
+def neutral_lag_correlation(design: Design, rate: np.ndarray) -> np.ndarray:
+    """Mean of exp(-rate dt) over successive samples, ``(R,)``."""
+    gaps = np.diff(np.asarray(design.times, dtype=np.float64))
+    return np.exp(-rate[:, None] * gaps[None, :]).mean(axis=1)
+
+
+@dataclass(frozen=True)
+class TaxonScan:
+    """The per-taxon measures of one dataset's units, for the data and every replicate."""
+
+    units: ScanUnits
+    time_series: bool
+
+    @property
+    def statistics(self) -> tuple[str, ...]:
+        return (("occupancy", "variability", "persistence") if self.time_series
+                else ("occupancy", "variability"))
+
+    def measure(self, counts: np.ndarray, design: Design, fit: NullFit) -> np.ndarray:
+        """Measures ``(R, M, G)`` of a batch ``(R, T, K)`` under its fits (rows: constants above)."""
+        pooled = self.units.sums(counts)
+        shares = self.units.sums(fit.p)
+        occupied = (pooled > 0).mean(axis=1)
+        expected = expected_occupancy(design.depths, shares, fit.theta, fit.noise)
+        corrected = taxon_moments(pooled, design.depths, fit.noise).corrected
+        neutral = shares * (1.0 - shares) / (1.0 + fit.theta[:, None])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(neutral > 0, corrected / neutral, np.nan)
+        rows = [occupied, expected, ratio]
+        if self.time_series:
+            rows.append(lag_correlations(pooled, design.depths, fit.noise, corrected))
+            rows.append(np.broadcast_to(neutral_lag_correlation(design, fit.rate)[:, None],
+                                        ratio.shape))
+        return np.stack(rows, axis=1)
+
+
+def taxon_scan_for(p: np.ndarray, theta: float, design: Design) -> TaxonScan:
+    """The scan of a dataset whose observed fit has composition ``p`` and ``theta``."""
+    return TaxonScan(scan_units(p, theta), design.is_time_series)
+
+
+def effects(measures: np.ndarray, scan: TaxonScan) -> np.ndarray:
+    """Effects ``(..., S, G)`` from measures ``(..., M, G)``, in ``scan.statistics`` order."""
+    rows = [measures[..., OCCUPANCY, :] - measures[..., EXPECTED, :],
+            measures[..., VARIANCE_RATIO, :]]
+    if scan.time_series:
+        rows.append(measures[..., LAG_CORRELATION, :] - measures[..., NEUTRAL_LAG, :])
+    return np.stack(rows, axis=-2)
+
+
+def two_sided_pvalues(observed: np.ndarray, null: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Bootstrap p-values and null medians of ``observed`` ``(S, G)`` against ``null`` ``(B, S, G)``.
+
+    p = (1 + #{finite replicates at least as far from their median}) / (n + 1), NaN where
+    the observed value is undefined or no replicate is finite.
+    """
+    finite = np.isfinite(null)
+    n = finite.sum(axis=0)
+    with np.errstate(invalid="ignore"):
+        center = np.where(n > 0, np.nanmedian(np.where(n > 0, null, 0.0), axis=0), np.nan)
+        hits = np.count_nonzero(finite & (np.abs(null - center) >= np.abs(observed - center)),
+                                axis=0)
+    pvalues = np.where(np.isfinite(observed) & (n > 0), (1.0 + hits) / (n + 1.0), np.nan)
+    return pvalues, center
+
+
+def leave_one_out(null: np.ndarray) -> np.ndarray:
+    """Each replicate's two-sided p-value against the others, ``(B, S, G)``; NaN stays NaN.
+
+    (1 + #others at least as far from the median) / (n - 1 + 1), as
+    :func:`driftscreen.calibrate.leave_one_out_pvalues` does for one column.
+    """
+    finite = np.isfinite(null)
+    n = finite.sum(axis=0)
+    with np.errstate(invalid="ignore"):
+        center = np.nanmedian(np.where(n > 0, null, 0.0), axis=0)
+    score = np.where(finite, np.abs(null - center), -np.inf)
+    below = stats.rankdata(score, method="min", axis=0) - 1 - (null.shape[0] - n)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = (n - below) / n
+    return np.where(finite & (n >= 2), out, np.nan)
+
+
+def hmp_statistic(pvalues: np.ndarray) -> np.ndarray:
+    """-log10 of the harmonic mean of the defined p-values along axis -2; NaN if none."""
+    weights = np.isfinite(pvalues).astype(np.float64)
+    combined = harmonic_mean_pvalue(np.where(weights > 0, pvalues, 0.5), weights=weights,
+                                    axis=-2)
+    return np.where(weights.sum(axis=-2) > 0, -np.log10(combined), np.nan)
+
+
+def pooled_pvalues(observed: np.ndarray, reference: np.ndarray) -> np.ndarray:
+    """(1 + #{reference >= observed}) / (N + 1) for each observed value, N finite references."""
+    pool = np.sort(reference[np.isfinite(reference)])
+    if pool.size == 0:
+        return np.full(observed.shape, np.nan)
+    at_least = pool.size - np.searchsorted(pool, np.where(np.isfinite(observed), observed, 0.0),
+                                           side="left")
+    return np.where(np.isfinite(observed), (1.0 + at_least) / (pool.size + 1.0), np.nan)
+
+
+def direction_text(statistics: Sequence[str], pvalues: np.ndarray, signs: np.ndarray) -> str:
+    """The words of the effects with p <= LEVEL, most significant first; '' if none."""
+    chosen = [j for j in np.argsort(pvalues, kind="stable")
+              if np.isfinite(pvalues[j]) and pvalues[j] <= LEVEL]
+    return "; ".join(DIRECTIONS[statistics[j]][0 if signs[j] > 0 else 1] for j in chosen)
+
+
+def scan_table(scan: TaxonScan, counts: np.ndarray, design: Design, observed: np.ndarray,
+               null: np.ndarray) -> pd.DataFrame:
+    """One row per unit, most abundant first: measures, effects, p-values, q, direction.
+
+    ``observed`` holds the data's measures ``(M, G)``, ``null`` the replicates'
+    ``(B, M, G)``. ``taxon`` is the index of the unit's most abundant taxon and
+    ``members`` its number of taxa.
+    """
+    observed_effects, null_effects = effects(observed, scan), effects(null, scan)
+    pvalues, center = two_sided_pvalues(observed_effects, null_effects)
+    combined = pooled_pvalues(hmp_statistic(pvalues), hmp_statistic(leave_one_out(null_effects)))
+    band = np.quantile(null[:, OCCUPANCY], BAND, axis=0)
+    mean = scan.units.sums(counts / design.depths[:, None]).mean(axis=0)
+    columns: dict[str, np.ndarray] = {
+        "taxon": scan.units.lead, "members": scan.units.members, "mean_abundance": mean,
+        "occupancy": observed[OCCUPANCY], "expected_occupancy": observed[EXPECTED],
+        "occupancy_low": band[0], "occupancy_high": band[1]}
+    for j, name in enumerate(scan.statistics):
+        columns[f"{name}_effect"] = observed_effects[j]
+        columns[f"{name}_p"] = pvalues[j]
+    signs = np.sign(observed_effects - center)
+    columns["combined_p"] = combined
+    columns["q_value"] = benjamini_hochberg(combined)
+    columns["direction"] = np.array(
+        [direction_text(scan.statistics, pvalues[:, u], signs[:, u])
+         for u in range(combined.size)], dtype=object)
+    order = np.argsort(-mean, kind="stable")
+    return pd.DataFrame({name: values[order] for name, values in columns.items()})
+
+
+def departing(table: pd.DataFrame, level: float = LEVEL) -> pd.DataFrame:
+    """The rows of a scan table with q <= ``level``, smallest q first."""
+    if table is None or "q_value" not in table:
+        return pd.DataFrame()
+    chosen = table[table["q_value"].to_numpy(dtype=np.float64) <= level]
+    return chosen.sort_values("q_value", kind="stable")
+
+
+ACROSS_COLUMNS = ("taxon", "datasets", "departing", "directions", "combined_p", "q_value")
+
+
+def direction_counts(directions: Sequence[str]) -> str:
+    """'more variable in 3, less frequent in 1': how often each word occurs, most first."""
+    words: dict[str, int] = {}
+    for text in directions:
+        for word in filter(None, (part.strip() for part in text.split(";"))):
+            words[word] = words.get(word, 0) + 1
+    ranked = sorted(words.items(), key=lambda item: (-item[1], item[0]))
+    return ", ".join(f"{word} in {n}" for word, n in ranked)
+
+
+def across_datasets(tables: Sequence[pd.DataFrame], level: float = LEVEL) -> pd.DataFrame:
+    """Per taxon over the datasets where it is tested on its own (not in a pool of rare taxa).
+
+    ``datasets``: how many; ``departing``: in how many its q <= ``level``;
+    ``directions``: the directions in those; ``combined_p``: Cauchy combination of its
+    combined p-values; ``q_value``: Benjamini-Hochberg across taxa. Sorted by q, then taxon.
+    """
+    rows = [table.loc[table["members"] == 1, ["taxon", "combined_p", "q_value", "direction"]]
+            for table in tables if table is not None and len(table)]
+    if not rows:
+        return pd.DataFrame({name: [] for name in ACROSS_COLUMNS})
+    frame = pd.concat(rows, ignore_index=True)
+    frame = frame[np.isfinite(frame["combined_p"].to_numpy(dtype=np.float64))]
+    records = []
+    for taxon, part in frame.groupby("taxon", sort=True):
+        pvalues = part["combined_p"].to_numpy(dtype=np.float64)
+        significant = part["q_value"].to_numpy(dtype=np.float64) <= level
+        records.append({"taxon": taxon, "datasets": len(part),
+                        "departing": int(significant.sum()),
+                        "directions": direction_counts(part["direction"][significant].tolist()),
+                        "combined_p": float(cauchy_combination(pvalues)[1])})
+    across = pd.DataFrame(records, columns=ACROSS_COLUMNS[:-1])
+    across["q_value"] = benjamini_hochberg(across["combined_p"].to_numpy(dtype=np.float64))
+    return across.sort_values(["q_value", "taxon"], kind="stable").reset_index(drop=True)

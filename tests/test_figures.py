@@ -59,12 +59,13 @@ def snapshot_result():
     return neutrality_test(dataset, replicates=19, seed=2)
 
 
-def test_time_series_gets_three_valid_pngs(series_result, tmp_path):
+def test_time_series_gets_four_valid_pngs(series_result, tmp_path):
     paths = write_figures(series_result, tmp_path / "figs")
     expected = figure_paths(tmp_path / "figs", "reactor_1")
-    assert paths == [expected["null"], expected["taylor"], expected["volatility"]]
+    assert paths == [expected["null"], expected["taylor"], expected["volatility"],
+                     expected["taxa"]]
     assert [p.name for p in paths] == ["reactor_1_null.png", "reactor_1_taylor.png",
-                                       "reactor_1_volatility.png"]
+                                       "reactor_1_volatility.png", "reactor_1_taxa.png"]
     for path in paths:
         assert_valid_png(path)
     assert sorted(p.name for p in (tmp_path / "figs").iterdir()) == sorted(p.name for p in paths)
@@ -72,7 +73,7 @@ def test_time_series_gets_three_valid_pngs(series_result, tmp_path):
 
 def test_snapshot_has_no_volatility_figure(snapshot_result, tmp_path):
     paths = write_figures(snapshot_result, tmp_path)
-    assert [p.name for p in paths] == ["jar_1_null.png", "jar_1_taylor.png"]
+    assert [p.name for p in paths] == ["jar_1_null.png", "jar_1_taylor.png", "jar_1_taxa.png"]
     for path in paths:
         assert_valid_png(path)
 
@@ -88,7 +89,7 @@ def test_figures_are_drawn_from_the_result_without_recomputing(series_result, tm
     stored = result_from_dict(json.loads(json.dumps(result_to_dict(series_result))))
     first = write_figures(stored, tmp_path / "a")
     second = write_figures(series_result, tmp_path / "b")
-    assert len(first) == 3
+    assert len(first) == 4
     # The same result draws the same bytes (Agg output is deterministic).
     for a, b in zip(first, second):
         assert a.read_bytes() == b.read_bytes()
@@ -140,8 +141,8 @@ def test_test_command_writes_figures(tables, tmp_path, capsys):
     assert main(args_for_test(tables, "--figures", str(folder))) == 0
     captured = capsys.readouterr()
     assert "Diagnostics" in captured.out
-    assert f"3 figures written to {folder}" in captured.err
-    for kind in ("null", "taylor", "volatility"):
+    assert f"4 figures written to {folder}" in captured.err
+    for kind in ("null", "taylor", "volatility", "taxa"):
         assert_valid_png(folder / f"vat_1_{kind}.png")
 
 
@@ -151,8 +152,9 @@ def test_screen_figures_default_to_the_output_folder(tables, tmp_path, capsys):
     printed = capsys.readouterr().out.splitlines()
     pngs = sorted((out / "figures").glob("*.png"))
     assert [p.name for p in pngs] == sorted(f"vat_{i}_{kind}.png" for i in (1, 2)
-                                            for kind in ("null", "taylor", "volatility"))
-    assert sorted(printed[4:]) == sorted(str(p) for p in pngs)
+                                            for kind in ("null", "taylor", "volatility",
+                                                         "taxa"))
+    assert sorted(printed[6:]) == sorted(str(p) for p in pngs)
     for path in pngs:
         assert_valid_png(path)
     assert not list((out / "figures").glob(".*"))  # no temporary files left
@@ -165,7 +167,7 @@ def test_screen_figures_default_to_the_output_folder(tables, tmp_path, capsys):
 def test_screen_figures_into_a_named_folder(tables, tmp_path):
     folder = tmp_path / "elsewhere"
     assert main(screen_args(tables, tmp_path / "res", "--figures", str(folder))) == 0
-    assert len(list(folder.glob("*.png"))) == 6
+    assert len(list(folder.glob("*.png"))) == 8
     assert not (tmp_path / "res" / "figures").exists()
 
 
@@ -196,5 +198,6 @@ def test_a_diagnostic_table_without_its_columns_gets_no_figure(series_result, tm
     tables = dict(series_result.diagnostics)
     tables["fluctuation_scaling"] = tables["fluctuation_scaling"].drop(
         columns=["neutral_variance"])
-    paths = write_figures(replace(series_result, diagnostics=tables), tmp_path)
+    scan = series_result.taxa.drop(columns=["occupancy_low"])
+    paths = write_figures(replace(series_result, diagnostics=tables, taxa=scan), tmp_path)
     assert [p.name for p in paths] == ["reactor_1_null.png", "reactor_1_volatility.png"]

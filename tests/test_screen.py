@@ -25,7 +25,8 @@ from driftscreen.serialize import result_to_dict
 from driftscreen.store import STORE_FOLDER, RECORDS_FOLDER
 from driftscreen.synthetic import DesignSpec
 
-OUTPUTS = ["results.tsv", "parameters.tsv", "results.json", "report.txt"]
+OUTPUTS = ["results.tsv", "parameters.tsv", "results.json", "report.txt", "taxa.tsv",
+           "taxa_across.tsv"]
 N_DATASETS = 4
 STATISTICS_PER_SERIES = 5  # four statistics + combined
 
@@ -115,7 +116,7 @@ def test_quiet_silences_stderr(tables, tmp_path, capsys):
 def test_one_and_two_jobs_give_identical_files(tables, reference, tmp_path, capsys):
     out = tmp_path / "two"
     assert main(screen_args(tables, out, "--quiet", jobs=2)) == 0
-    for name in ("results.tsv", "parameters.tsv", "results.json"):
+    for name in ("results.tsv", "parameters.tsv", "results.json", "taxa.tsv", "taxa_across.tsv"):
         assert (out / name).read_bytes() == (reference / name).read_bytes(), name
 
 
@@ -247,7 +248,7 @@ def test_resume_after_interruption_recomputes_nothing(tables, reference, tmp_pat
     assert main(screen_args(tables, out)) == 0
     assert f"reusing 1 finished dataset from {out}" in capsys.readouterr().err
     assert len(calls) == N_DATASETS - 1
-    for name in ("results.tsv", "parameters.tsv", "results.json"):
+    for name in ("results.tsv", "parameters.tsv", "results.json", "taxa.tsv", "taxa_across.tsv"):
         assert (out / name).read_bytes() == (reference / name).read_bytes(), name
 
     calls.clear()

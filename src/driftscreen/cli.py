@@ -237,9 +237,13 @@ def add_test(sub: argparse._SubParsersAction) -> None:
     add_calibration_options(p)
     add_null_options(p)
     p.add_argument("--output", metavar="FILE", help="also write the report to FILE")
+    p.add_argument("--taxa", metavar="FILE",
+                   help="also write the per-taxon scan (which taxa depart from neutrality, "
+                        "with p- and q-values and directions) to FILE as a TSV table")
     p.add_argument("--figures", metavar="DIR",
-                   help="also draw the null distributions, Taylor's law and the volatility "
-                        "of groups of taxa as PNG files in DIR (needs driftscreen[plot])")
+                   help="also draw the null distributions, Taylor's law, the volatility "
+                        "of groups of taxa and the occupancy of every taxon as PNG files "
+                        "in DIR (needs driftscreen[plot])")
     add_detectable_option(p)
     add_influence_option(p)
     p.set_defaults(handler=run_test)
@@ -253,7 +257,7 @@ def run_test(args: argparse.Namespace) -> int:
                           seed=args.seed, jobs=args.jobs, output=args.output,
                           detectable=args.detectable, messages=sys.stderr,
                           figures=args.figures, influence=args.influence,
-                          null=null_options(args))
+                          null=null_options(args), taxa=args.taxa)
     sys.stdout.write(report)
     return 0
 
@@ -265,7 +269,9 @@ def add_screen(sub: argparse._SubParsersAction) -> None:
                                    "(one dataset per combination of the --dataset-by columns), "
                                    "adjust the p-values for the false discovery rate across "
                                    "datasets, and write results.tsv, parameters.tsv, "
-                                   "results.json and report.txt into the output folder. "
+                                   "results.json, report.txt, taxa.tsv (which taxa depart "
+                                   "from neutrality) and taxa_across.tsv (which depart "
+                                   "across datasets) into the output folder. "
                                    "Finished datasets are kept in the folder: running the same "
                                    "command again after an interruption goes on where it "
                                    "stopped.")

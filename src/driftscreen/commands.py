@@ -30,6 +30,8 @@ RESULTS_FILE = "results.tsv"
 PARAMETERS_FILE = "parameters.tsv"
 RESULTS_JSON_FILE = "results.json"
 REPORT_FILE = "report.txt"
+TAXA_FILE = "taxa.tsv"
+TAXA_ACROSS_FILE = "taxa_across.tsv"
 
 
 #: Fingerprint entry of a screen run without the most influential samples.
@@ -138,8 +140,12 @@ def choose_dataset(datasets: Sequence[Dataset], name: str | None, source: str) -
 def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int, jobs: int,
                  output: str | None = None, detectable: bool = False,
                  messages: TextIO | None = None, figures: str | None = None,
-                 influence: bool = True, null: NullOptions = NullOptions()) -> str:
+                 influence: bool = True, null: NullOptions = NullOptions(),
+                 taxa: str | None = None) -> str:
     """`driftscreen test`: the report text (also written to ``output`` if given).
+
+    With ``taxa``, the per-taxon scan (:mod:`driftscreen.taxon_scan`) is written to that
+    file as a TSV table with the columns of the screen's ``taxa.tsv``.
 
     ``null`` says how the neutral null treats the reads' technical noise and the first
     sample of a time series (:class:`driftscreen.neutral.model.NullOptions`).
@@ -183,6 +189,10 @@ def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int
     report = result.summary()
     if output:
         atomic_write_text(output, report)
+    if taxa:
+        from driftscreen.report.tables import result_taxa_tsv
+
+        atomic_write_text(taxa, result_taxa_tsv(result))
     if figures is not None:
         written = write_figures(result, figures)
         if messages is not None:
@@ -246,12 +256,13 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
     Returns
     -------
     list of Path
-        ``results.tsv``, ``parameters.tsv``, ``results.json`` and ``report.txt`` in ``out``,
-        then the figures.
+        ``results.tsv``, ``parameters.tsv``, ``results.json``, ``report.txt``,
+        ``taxa.tsv`` and ``taxa_across.tsv`` in ``out``, then the figures.
     """
     from driftscreen.calibrate import CalibrationSettings
     from driftscreen.intake import read_datasets
-    from driftscreen.report.tables import parameters_tsv, results_json, results_tsv
+    from driftscreen.report.tables import (parameters_tsv, results_json, results_tsv,
+                                           taxa_across_tsv, taxa_tsv)
     from driftscreen.report.text import screen_report
     from driftscreen.screen import check_backend, execution_backend, screen, screen_statistics
     from driftscreen.power import detectable_settings
@@ -291,6 +302,8 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
         RESULTS_JSON_FILE: results_json(run, fingerprint),
         REPORT_FILE: screen_report(run, fingerprint, run_seconds=time.monotonic() - started,
                                    date=date),
+        TAXA_FILE: taxa_tsv(run),
+        TAXA_ACROSS_FILE: taxa_across_tsv(run),
     }
     paths = [atomic_write_text(Path(out) / name, text) for name, text in texts.items()]
     return paths + ([] if figures is None else screen_figures(run, figures))
@@ -455,6 +468,10 @@ def power_command(design: PowerDesign, *, alternative: str = "logistic",
     report = result.summary()
     if output:
         atomic_write_text(output, report)
+    if taxa:
+        from driftscreen.report.tables import result_taxa_tsv
+
+        atomic_write_text(taxa, result_taxa_tsv(result))
     if table:
         atomic_write_text(table, result.to_tsv())
     return report

@@ -12,7 +12,13 @@ state are involved. Per dataset, in a folder:
   (Taylor 1961, Nature 189:732);
 * ``<dataset>_volatility.png`` (time series): the volatility of random groups of taxa
   against their fitted abundance, 1 being neutral (after Washburne et al. 2016, PLoS
-  Comput. Biol. 12:e1005124).
+  Comput. Biol. 12:e1005124);
+* ``<dataset>_taxa.png``: occupancy against mean relative abundance of every taxon (or
+  pool of rare taxa) of the per-taxon scan, with the neutral expectation, the 95% band of
+  the re-fitted replicates and the taxa at q <= 0.05 marked by direction (after Sloan et
+  al. 2006, Environ. Microbiol. 8:732); colours and markers stay apart for colour-blind
+  readers (blue circles, orange upward and purple downward triangles, black diamonds,
+  grey band).
 
 Files are written through a temporary file and a rename, so a final name never holds half
 a figure.
@@ -54,7 +60,13 @@ DPI = 120
 OBSERVED_COLOUR = "#c0392b"
 NULL_COLOUR = "#8fb3d9"
 NEUTRAL_COLOUR = "#555555"
-SUFFIXES = ("null", "taylor", "volatility")
+SUFFIXES = ("null", "taylor", "volatility", "taxa")
+#: The per-taxon figure: within the band, above and below the neutral occupancy.
+TAXON_COLOURS = {"within": "#2b6cb0", "above": "#e08a00", "below": "#7b3294",
+                 "other": "#1a1a1a"}
+BAND_COLOUR = "#cccccc"
+TAXA_COLUMNS = ("mean_abundance", "occupancy", "expected_occupancy", "occupancy_low",
+                "occupancy_high", "q_value", "direction")
 #: Tick positions offered on the volatility figure's axes (shown when inside the data range).
 ABUNDANCE_TICKS = (1e-5, 1e-4, 1e-3, 0.01, 0.1, 0.5, 0.9, 0.99, 0.999, 0.9999, 0.99999)
 #: Columns each diagnostic figure reads (a table without them gets no figure).
@@ -101,7 +113,7 @@ def write_figures(result: NeutralityResult, folder: str | os.PathLike) -> list[P
     require_matplotlib()
     paths = figure_paths(folder, result.dataset.name)
     figures = {"null": null_figure(result), "taylor": taylor_figure(result),
-               "volatility": volatility_figure(result)}
+               "volatility": volatility_figure(result), "taxa": taxa_figure(result)}
     return [save_png(figure, paths[kind]) for kind, figure in figures.items()
             if figure is not None]
 
@@ -262,6 +274,46 @@ def volatility_figure(result: NeutralityResult) -> Figure | None:
         f"\n{pvalue_label(statistic, result.replicates)} (spread of log volatility)"
     axes.set_title(f"Dataset '{result.dataset.name}': volatility of {len(kept)} random "
                    "groups of taxa" + subtitle, fontsize=10)
+    return figure
+
+
+def taxa_figure(result: NeutralityResult) -> Figure | None:
+    """Occupancy against mean abundance, neutral expectation and band, departing taxa marked."""
+    scan = result.taxa
+    if scan is None or not len(scan) or not set(TAXA_COLUMNS) <= set(scan.columns):
+        return None
+    scan = scan.sort_values("mean_abundance", kind="stable")
+    scan = scan[scan["mean_abundance"].to_numpy(dtype=np.float64) > 0]
+    if scan.empty:
+        return None
+    mean = scan["mean_abundance"].to_numpy(dtype=np.float64)
+    flagged = scan["q_value"].to_numpy(dtype=np.float64) <= 0.05
+    direction = scan["direction"].astype(str)
+    above = flagged & direction.str.contains("more frequent").to_numpy()
+    below = flagged & direction.str.contains("less frequent").to_numpy()
+    figure = new_figure(6.4, 4.8)
+    axes = figure.subplots()
+    axes.set_xscale("log")
+    axes.fill_between(mean, scan["occupancy_low"], scan["occupancy_high"], color=BAND_COLOUR,
+                      alpha=0.7, linewidth=0, label="95% of re-fitted neutral replicates")
+    axes.plot(mean, scan["expected_occupancy"], color=NEUTRAL_COLOUR, linewidth=1.2,
+              label="neutral expectation")
+    groups = {"within": (~flagged, "o", "taxa"),
+              "above": (above, "^", "departing (q <= 0.05): more frequent"),
+              "below": (below, "v", "departing (q <= 0.05): less frequent"),
+              "other": (flagged & ~above & ~below, "D",
+                        "departing (q <= 0.05): variability or persistence")}
+    for kind, (chosen, marker, label) in groups.items():
+        if chosen.any():
+            axes.scatter(mean[chosen], scan["occupancy"].to_numpy()[chosen], marker=marker,
+                         s=16 if kind == "within" else 40, color=TAXON_COLOURS[kind],
+                         label=label, zorder=3)
+    axes.set_ylim(-0.03, 1.03)
+    axes.set_xlabel("mean relative abundance (fraction of reads; rare taxa in pools)")
+    axes.set_ylabel("occupancy: share of samples with reads")
+    axes.legend(fontsize=8, frameon=False, loc="lower right")
+    axes.set_title(f"Dataset '{result.dataset.name}': occupancy of {len(scan)} taxa and "
+                   f"pools, {int(flagged.sum())} departing", fontsize=10)
     return figure
 
 

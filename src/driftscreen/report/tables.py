@@ -7,7 +7,9 @@ Each dataset's diagnostic tables appear in ``results.json`` column by column, wi
 column's type (:func:`driftscreen.serialize.table_to_dict`). For a dataset with combined
 p <= 0.05, ``influential_sample`` in ``results.tsv`` names its most influential sample and
 ``p_value_without_sample`` is each statistic's p-value without it (the combined one in
-the ``combined`` row); both are empty for the other datasets.
+the ``combined`` row); both are empty for the other datasets. ``taxa.tsv`` has a row per
+dataset and taxon (or pool of rare taxa) of the per-taxon scan (:mod:`driftscreen.taxon_scan`),
+``taxa_across.tsv`` a row per taxon combined over the datasets where it was tested alone.
 """
 
 from __future__ import annotations
@@ -17,11 +19,14 @@ import math
 from collections.abc import Mapping, Sequence
 from typing import Any
 
+import pandas as pd
+
 from driftscreen.results import NeutralityResult
 from driftscreen.screen import DatasetOutcome, ScreenResult
 from driftscreen.calibrate import COMBINED
 from driftscreen.serialize import (float_to_json, floats_to_json, influence_to_dict,
                                    summary_to_dict, table_to_dict)
+from driftscreen.taxon_scan import ACROSS_COLUMNS, across_datasets
 
 RESULTS_COLUMNS = ("dataset", "statistic", "alternative", "observed", "null_mean", "null_sd",
                    "null_median", "effect_size", "ratio_to_median", "p_value", "q_value",
@@ -31,6 +36,10 @@ PARAMETERS_COLUMNS = ("dataset", "design", "theta", "theta_low", "theta_high", "
                       "rate_low", "rate_high", "read_precision", "read_precision_low",
                       "read_precision_high", "n_taxa", "n_taxa_dropped", "n_samples",
                       "depth_min", "depth_median", "depth_max", "span_days", "flags", "note")
+TAXA_COLUMNS = ("dataset", "taxon", "members", "mean_abundance", "occupancy",
+                "expected_occupancy", "occupancy_low", "occupancy_high", "occupancy_effect",
+                "occupancy_p", "variability_effect", "variability_p", "persistence_effect",
+                "persistence_p", "combined_p", "q_value", "direction")
 FDR_METHOD = ("Benjamini-Hochberg (1995) q-values per statistic across the datasets; "
               "undefined p-values are left out")
 
@@ -153,3 +162,35 @@ def results_json(run: ScreenResult, provenance: Mapping[str, Any]) -> str:
         "datasets": [dataset_record(o, i, run) for i, o in enumerate(run.outcomes)],
     }
     return json.dumps(document, indent=1, allow_nan=False) + "\n"
+
+
+def taxa_rows(result: NeutralityResult) -> list[list[object]]:
+    """taxa.tsv rows of one dataset (none without a scan); snapshots leave persistence empty."""
+    table = result.taxa
+    if table is None:
+        return []
+    columns = [table[name].tolist() if name in table else [None] * len(table)
+               for name in TAXA_COLUMNS[1:]]
+    return [[result.dataset.name] + list(row) for row in zip(*columns)]
+
+
+def result_taxa_tsv(result: NeutralityResult) -> str:
+    """The per-taxon scan of one dataset (``test --taxa``)."""
+    return tsv(TAXA_COLUMNS, taxa_rows(result))
+
+
+def taxa_tsv(run: ScreenResult) -> str:
+    """The per-taxon scan of every analysed dataset, in the screen's order."""
+    return tsv(TAXA_COLUMNS, [row for outcome in run.outcomes if outcome.result is not None
+                              for row in taxa_rows(outcome.result)])
+
+
+def screen_taxa(run: ScreenResult) -> pd.DataFrame:
+    """Taxa combined over the screen's datasets (:func:`driftscreen.taxon_scan.across_datasets`)."""
+    return across_datasets([o.result.taxa for o in run.outcomes if o.result is not None])
+
+
+def taxa_across_tsv(run: ScreenResult) -> str:
+    """One row per taxon tested alone in at least one dataset, smallest q first."""
+    across = screen_taxa(run)
+    return tsv(ACROSS_COLUMNS, list(across[list(ACROSS_COLUMNS)].itertuples(index=False)))

@@ -377,6 +377,11 @@ def dataset_section(result: NeutralityResult, legend: bool = True) -> list[str]:
     diagnostics = diagnostics_lines(result, legend)
     if diagnostics:
         lines += [""] + diagnostics
+    from driftscreen.report.taxa import taxa_lines
+
+    taxa = taxa_lines(result, legend)
+    if taxa:
+        lines += [""] + taxa
     notes = list(result.dataset.notes) + list(result.notes) + [
         f"{s.name}: {s.note}" for s in result.statistics.values() if s.note]
     if notes:
@@ -630,8 +635,14 @@ def withheld_below(options: NullOptions) -> str:
     return f"{MIN_CORRELATION_TIMES[options.start]:.3g}"
 
 
+def any_taxon_scan(run: ScreenResult) -> bool:
+    return any(o.result is not None and o.result.taxa is not None for o in run.outcomes)
+
+
 def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
     """A paragraph for a manuscript, with B, R, the seed and the version actually used."""
+    from driftscreen.report.taxa import TAXA_METHODS
+
     settings = run.settings
     described = [STATISTIC_METHODS.get(name, name).format(groupings=settings.groupings)
                  for name in statistics_used(run)]
@@ -672,6 +683,7 @@ def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
         "were computed per statistic across datasets by the Benjamini-Hochberg procedure "
         "(Benjamini & Hochberg 1995, J. R. Stat. Soc. B 57:289). "
         + (INFLUENCE_METHODS if any_influence(run) else "")
+        + (TAXA_METHODS if any_taxon_scan(run) else "")
         + f"Analyses used driftscreen {version} with master random seed {settings.seed}.")
     if left_out:
         text += (f" {left_out} further {'dataset' if left_out == 1 else 'datasets'} could "
@@ -689,9 +701,16 @@ def screen_report(run: ScreenResult, provenance: Mapping[str, Any], *, run_secon
     lines = screen_header(run, provenance, run_seconds, date) + [""] + summary_lines(run)
     for index in range(len(run.outcomes)):
         lines += [""] + outcome_section(run, index)
+    from driftscreen.report.taxa import TAXA_LEGEND, screen_taxa_lines
+
+    across = screen_taxa_lines(run)
+    if across:
+        lines += [""] + across
     used = statistics_used(run)
     if any(outcome.result is not None and outcome.result.diagnostics
            for outcome in run.outcomes):
         lines += [""] + heading("Reading the diagnostics") + diagnostics_legend(used)
+    if across:
+        lines += [""] + wrap(TAXA_LEGEND)
     lines += [""] + methods_paragraph(run, provenance["driftscreen_version"])
     return "\n".join(lines) + "\n"

@@ -130,15 +130,13 @@ def scan_units(p: np.ndarray, theta: float, min_shape: float = MIN_SHAPE) -> Sca
 def detection_probability(depths: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """1 - BetaBinomial(n, a, b).pmf(0) = 1 - B(a, b + n)/B(a, b), broadcast over inputs.
 
-    In log-gamma form, Gamma(b + n) Gamma(a + b) / (Gamma(b) Gamma(a + b + n)); a = 0
-    (an absent taxon) gives 0 and b = 0 (the whole community) gives 1.
+    Evaluated as -expm1(betaln(a, b + n) - betaln(a, b)); a = 0 (an absent taxon) gives 0
+    and b = 0 (the whole community) gives 1.
     """
     n = np.asarray(depths, dtype=np.float64)
     a, b = np.asarray(a, dtype=np.float64), np.asarray(b, dtype=np.float64)
-    safe_b = np.where(b > 0, b, 1.0)
-    log_zero = (special.gammaln(safe_b + n) - special.gammaln(safe_b)
-                + special.gammaln(a + safe_b) - special.gammaln(a + safe_b + n))
-    detected = -np.expm1(log_zero)
+    safe_a, safe_b = np.where(a > 0, a, 1.0), np.where(b > 0, b, 1.0)
+    detected = -np.expm1(special.betaln(safe_a, safe_b + n) - special.betaln(safe_a, safe_b))
     return np.where(a <= 0, 0.0, np.where(b <= 0, 1.0, detected))
 
 

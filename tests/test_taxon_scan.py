@@ -1,0 +1,247 @@
+"""The per-taxon scan: detection probability, units, p-values, planted departures, outputs."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import replace
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+from driftscreen.calibrate import bootstrap_pvalue, leave_one_out_pvalues, neutrality_test
+from driftscreen.cli import main
+from driftscreen.commands import neutral_collection, write_collection
+from driftscreen.dataset import Dataset, Design
+from driftscreen.neutral.model import NullFit
+from driftscreen.report.tables import TAXA_COLUMNS, result_taxa_tsv
+from driftscreen.report.text import WIDTH
+from driftscreen.serialize import result_from_dict, result_to_dict
+from driftscreen.synthetic import DesignSpec
+from driftscreen.taxon_scan import (MIN_SHAPE, TaxonScan, across_datasets, detection_depths,
+                                    detection_probability, expected_occupancy, leave_one_out,
+                                    pooled_pvalues, scan_units, two_sided_pvalues)
+
+RNG_DRAWS = 400_000
+
+
+def test_detection_probability_is_one_minus_the_beta_binomial_zero():
+    # Source: scipy.stats.betabinom; Sloan et al. 2006 (Environ. Microbiol. 8:732) use the
+    # beta distribution of the same neutral model for the occupancy prediction.
+    depths = np.array([1, 10, 500, 20_000])
+    for a, b in [(0.01, 40.0), (0.5, 99.5), (3.0, 7.0), (150.0, 50.0), (1e-4, 1000.0)]:
+        expected = 1.0 - stats.betabinom.pmf(0, depths, a, b)
+        # Both are float64 differences of log-beta functions: agreement to 1e-8 relative.
+        np.testing.assert_allclose(detection_probability(depths, a, b), expected, rtol=1e-8,
+                                   atol=1e-14)
+
+
+def test_detection_probability_edges():
+    assert detection_probability(100, 0.0, 5.0) == 0.0
+    assert detection_probability(100, 5.0, 0.0) == 1.0
+
+
+@pytest.mark.parametrize("theta, p, depth", [(50.0, 0.002, 1000), (20.0, 0.03, 300),
+                                             (300.0, 0.001, 5000)])
+def test_detection_probability_matches_a_direct_monte_carlo(theta, p, depth):
+    # Common practice: draw the taxon's share from its stationary Beta law (design note,
+    # section 1), then multinomial (binomial) reads; tolerance 5 Monte Carlo SE.
+    rng = np.random.default_rng(11)
+    shares = rng.beta(theta * p, theta * (1 - p), RNG_DRAWS)
+    detected = np.mean(rng.binomial(depth, shares) > 0)
+    se = np.sqrt(detected * (1 - detected) / RNG_DRAWS)
+    formula = detection_probability(depth, theta * p, theta * (1 - p))
+    assert abs(formula - detected) < 5 * se
+
+
+@pytest.mark.parametrize("theta, p, depth, precision", [(50.0, 0.002, 1000, 300.0),
+                                                        (50.0, 0.01, 5000, 100.0),
+                                                        (300.0, 0.003, 10_000, 30.0)])
+def test_expected_occupancy_with_noisy_reads_matches_a_direct_monte_carlo(theta, p, depth,
+                                                                          precision):
+    # Dirichlet-multinomial reads (Mosimann 1962, Biometrika 49:65): share X ~ Beta, read
+    # composition Z ~ Beta(C X, C (1 - X)), reads Binomial(n, Z). The effective depth is an
+    # approximation derived in driftscreen.taxon_scan; measured within 0.002 there.
+    rng = np.random.default_rng(12)
+    shares = rng.beta(theta * p, theta * (1 - p), RNG_DRAWS)
+    reads = rng.beta(np.maximum(precision * shares, 1e-300), precision * (1 - shares))
+    detected = np.mean(rng.binomial(depth, reads) > 0)
+    se = np.sqrt(detected * (1 - detected) / RNG_DRAWS)
+    formula = expected_occupancy(np.array([depth]), np.array([[p]]), np.array([theta]),
+                                 np.array([1.0 / (1.0 + precision)]))[0, 0]
+    assert abs(formula - detected) < 0.003 + 5 * se
+    # The multinomial formula at the full depth would be far off.
+    assert detection_probability(depth, theta * p, theta * (1 - p)) - detected > 0.02
+
+
+def test_effective_depth_is_the_depth_without_noise_and_smaller_with_it():
+    depths = np.array([100.0, 10_000.0])
+    np.testing.assert_array_equal(detection_depths(depths, np.array([0.0]))[0], depths)
+    noisy = detection_depths(depths, np.array([1.0 / 301.0]))[0]
+    assert np.all(noisy < depths) and noisy[1] > noisy[0]
+    # C -> inf: C (digamma(C + n) - digamma(C)) -> n.
+    nearly = detection_depths(depths, np.array([1e-9]))[0]
+    np.testing.assert_allclose(nearly, depths, rtol=1e-4)
+
+
+def test_expected_occupancy_averages_the_samples_depths():
+    depths = np.array([500, 2000, 500, 8000])
+    p, theta = np.array([[0.01, 0.2]]), np.array([40.0])
+    expected = expected_occupancy(depths, p, theta, np.array([0.0]))
+    direct = np.mean([1 - stats.betabinom.pmf(0, n, theta[0] * p[0], theta[0] * (1 - p[0]))
+                      for n in depths], axis=0)
+    np.testing.assert_allclose(expected[0], direct, rtol=1e-10)
+
+
+def test_units_partition_the_taxa_and_pool_only_rare_ones():
+    rng = np.random.default_rng(3)
+    p = rng.dirichlet(np.full(60, 0.3))
+    theta = 80.0
+    units = scan_units(p, theta)
+    assert sorted(units.order.tolist()) == list(range(60))
+    assert units.members.sum() == 60
+    shapes = units.sums(theta * p)
+    assert np.all(shapes[units.members > 1] >= MIN_SHAPE - 1e-12)
+    alone = units.lead[units.members == 1]
+    assert np.all(theta * p[alone][:-1] >= 0) and (units.members > 1).any()
+    # A taxon of shape >= 1 is pooled only when it completes a group of rarer taxa.
+    pooled = np.concatenate([units.order[s:s + m] for s, m in zip(units.starts, units.members)
+                             if m > 1])
+    assert np.sum(theta * p[pooled] >= MIN_SHAPE) <= np.count_nonzero(units.members > 1)
+    # The lead of a pool is its most abundant member.
+    for start, m, lead in zip(units.starts, units.members, units.lead):
+        assert p[lead] == p[units.order[start:start + m]].max()
+
+
+def test_pvalues_agree_with_the_calibration_of_one_statistic():
+    rng = np.random.default_rng(5)
+    null = rng.normal(size=(49, 2, 7))
+    null[3, 0, 1] = null[10, 1, 4] = np.nan
+    null[:, 1, 6] = np.round(null[:, 1, 6])  # ties
+    observed = rng.normal(scale=2.0, size=(2, 7))
+    pvalues, _ = two_sided_pvalues(observed, null)
+    loo = leave_one_out(null)
+    for s in range(2):
+        for g in range(7):
+            assert pvalues[s, g] == pytest.approx(
+                bootstrap_pvalue(observed[s, g], null[:, s, g], "two-sided"), abs=1e-15)
+            np.testing.assert_allclose(loo[:, s, g],
+                                       leave_one_out_pvalues(null[:, s, g], "two-sided"))
+
+
+def test_pooled_pvalues_count_the_reference_at_least_as_large():
+    reference = np.array([[0.1, 0.5, np.nan], [0.9, 2.0, 0.5]])
+    np.testing.assert_allclose(pooled_pvalues(np.array([0.5, 3.0, np.nan]), reference),
+                               [5 / 6, 1 / 6, np.nan])
+
+
+def small_series(seed: int = 21, n_taxa: int = 25, samples: int = 40) -> Dataset:
+    spec = DesignSpec(n_samples=samples, interval=1.0, depth=4000, depth_spread=0.2)
+    return neutral_collection(1, spec, n_taxa, 60.0, 0.4, seed=seed, prefix="tank")[0]
+
+
+def test_measures_are_vectorised_over_replicates():
+    dataset = small_series()
+    counts = np.stack([dataset.counts, dataset.counts[::-1], np.roll(dataset.counts, 3, 0)])
+    p = counts.sum(axis=1) / counts.sum(axis=(1, 2))[:, None]
+    fit = NullFit(p, np.array([50.0, 70.0, 30.0]), np.array([0.3, 0.5, 0.2]),
+                  np.zeros(3, bool), np.array([0.0, 0.002, 0.0]))
+    scan = TaxonScan(scan_units(p[0], 50.0), True)
+    batch = scan.measure(counts, dataset.design, fit)
+    for r in range(3):
+        one = NullFit(p[r:r + 1], fit.theta[r:r + 1], fit.rate[r:r + 1], fit.clipped[r:r + 1],
+                      fit.noise[r:r + 1])
+        np.testing.assert_allclose(scan.measure(counts[r:r + 1], dataset.design, one)[0],
+                                   batch[r], rtol=1e-12)
+
+
+def with_planted_departure(dataset: Dataset, taxon: int) -> Dataset:
+    """The taxon's reads removed from every other sample of the second half (a niche-like
+    absence: the habitat excludes it there)."""
+    counts = dataset.counts.copy()
+    half = dataset.n_samples // 2
+    counts[half::2, taxon] = 0
+    design = Design(depths=counts.sum(axis=1), times=dataset.design.times)
+    return replace(dataset, counts=counts, design=design)
+
+
+@pytest.fixture(scope="module")
+def planted():
+    dataset = small_series()
+    taxon = int(np.argsort(dataset.counts.sum(axis=0))[-3])  # the third most abundant
+    return dataset.taxa[taxon], neutrality_test(with_planted_departure(dataset, taxon),
+                                                replicates=99, groupings=20, seed=4)
+
+
+def test_a_planted_absence_is_flagged_less_frequent(planted):
+    name, result = planted
+    scan = result.taxa
+    row = scan[scan["taxon"] == name].iloc[0]
+    assert row["q_value"] <= 0.05
+    assert "less frequent" in row["direction"]
+    assert row["occupancy"] < row["occupancy_low"]
+    assert (scan["q_value"] <= 0.05).sum() <= 3  # the others stay mostly unflagged
+    report = result.summary()
+    assert "Taxa departing from neutrality" in report and name in report
+    assert max(len(line) for line in report.splitlines()) <= WIDTH
+
+
+def test_neutral_data_flag_no_taxon():
+    result = neutrality_test(small_series(seed=22), replicates=99, groupings=20, seed=4)
+    scan = result.taxa
+    assert len(scan) > 5 and not (scan["q_value"] <= 0.05).any()
+    assert set(scan.columns) >= {"persistence_effect", "persistence_p"}
+    assert "No taxon departs at q <= 0.05" in result.summary()
+
+
+def test_scan_survives_a_json_round_trip(planted):
+    _, result = planted
+    stored = result_from_dict(json.loads(json.dumps(result_to_dict(result))))
+    pd.testing.assert_frame_equal(stored.taxa, result.taxa)
+    assert result_taxa_tsv(stored) == result_taxa_tsv(result)
+
+
+@pytest.fixture(scope="module")
+def tables(tmp_path_factory):
+    spec = DesignSpec(n_samples=20, interval=None, depth=3000)
+    datasets = neutral_collection(2, spec, 15, 40.0, 0.5, seed=23, prefix="pot")
+    return write_collection(datasets, tmp_path_factory.mktemp("tables"))
+
+
+def test_test_command_writes_the_taxa_table(tables, tmp_path, capsys):
+    counts, metadata = tables
+    path = tmp_path / "taxa.tsv"
+    assert main(["test", str(counts), "--metadata", str(metadata), "--dataset-by", "dataset",
+                 "--dataset", "pot_1", "--replicates", "19", "--groupings", "10",
+                 "--taxa", str(path)]) == 0
+    header, *rows = path.read_text(encoding="utf-8").splitlines()
+    assert header.split("\t") == list(TAXA_COLUMNS)
+    cells = [row.split("\t") for row in rows]
+    assert rows and all(len(c) == len(TAXA_COLUMNS) and c[0] == "pot_1" for c in cells)
+    persistence = TAXA_COLUMNS.index("persistence_p")
+    assert all(c[persistence] == "" for c in cells)  # snapshots have no persistence
+    occupancy = [float(c[TAXA_COLUMNS.index("occupancy")]) for c in cells]
+    assert all(0 <= x <= 1 for x in occupancy)
+
+
+def test_across_datasets_uses_the_cauchy_combination_and_skips_pools():
+    def table(rows):
+        return pd.DataFrame(rows, columns=["taxon", "members", "combined_p", "q_value",
+                                           "direction"])
+    first = table([("A", 1, 0.001, 0.01, "more variable"), ("B", 1, 0.4, 0.8, ""),
+                   ("C +3 rare", 4, 0.0001, 0.001, "less frequent")])
+    second = table([("A", 1, 0.02, 0.04, "more variable; less frequent"),
+                    ("B", 1, 0.7, 0.9, "")])
+    across = across_datasets([first, second]).set_index("taxon")
+    assert list(across.index) == ["A", "B"]
+    # Liu & Xie 2020 (J. Am. Stat. Assoc. 115:393): T = mean tan((1/2 - p) pi),
+    # p = 1/2 - arctan(T)/pi.
+    for taxon, pvalues in {"A": [0.001, 0.02], "B": [0.4, 0.7]}.items():
+        t = np.mean(np.tan((0.5 - np.array(pvalues)) * np.pi))
+        assert across.loc[taxon, "combined_p"] == pytest.approx(0.5 - np.arctan(t) / np.pi)
+    # Source: scipy.stats.false_discovery_control implements Benjamini & Hochberg (1995).
+    np.testing.assert_allclose(across["q_value"],
+                               stats.false_discovery_control(across["combined_p"], method="bh"))
+    assert across.loc["A", "departing"] == 2 and across.loc["A", "datasets"] == 2
+    assert across.loc["A", "directions"] == "more variable in 2, less frequent in 1"

@@ -39,7 +39,8 @@ def test_detection_probability_is_one_minus_the_beta_binomial_zero():
         # The zero term as a product, P(N = 0) = prod_{k < n} (b + k) / (a + b + k) (common
         # practice: the beta-binomial pmf at 0), summed in logs without cancellation.
         exact = [-np.expm1(-np.sum(np.log1p(a / (b + np.arange(n))))) for n in depths]
-        np.testing.assert_allclose(detection_probability(depths, a, b), exact, rtol=1e-6)
+        np.testing.assert_allclose(detection_probability(depths, a, b), exact, rtol=1e-6,
+                                   atol=1e-11)
 
 
 def test_detection_probability_edges():

@@ -253,3 +253,44 @@ def test_invalid_parameters_are_rejected() -> None:
         NoisyLotkaVolterra(n_taxa=5, noise=-0.1)
     with pytest.raises(ValueError):
         NoisyLotkaVolterra(n_taxa=0)
+
+
+# --- environmental tracking: the per-taxon scan's planted truth -------------------------
+
+def test_tracking_departures_are_the_strengths_of_the_simulated_community() -> None:
+    from driftscreen.niche import EnvironmentalTracking
+
+    model = EnvironmentalTracking(30, theta=80.0, rate=0.5, timescale=3.0)
+    design = Design(depths=np.full(400, 20_000), times=np.arange(400.0))
+    rng = np.random.default_rng(8)
+    departures = model.departures(1, np.random.default_rng(8))[0]
+    p, strengths = model.draw_community(1, np.random.default_rng(8))
+    np.testing.assert_array_equal(departures, strengths[0])
+    assert sorted(departures[departures > 0]) == sorted(model.strengths)
+    # Responders lie in the more abundant half of the metacommunity.
+    assert np.all(np.argsort(np.argsort(-p[0]))[departures > 0] < 15)
+    counts = model.simulate(design, 1, rng)[0]
+    log_share = np.log((counts + 0.5) / counts.sum(axis=1, keepdims=True))
+    spread = log_share.std(axis=0)
+    # The strongest responder varies more than any neutral taxon of similar abundance would:
+    # its log-share sd exceeds its environmental log-sd alone (1.1), which drift at theta 80
+    # adds to (common practice: independent variances add).
+    strongest = int(np.argmax(departures))
+    assert spread[strongest] > 1.0
+    # The environment is an Ornstein-Uhlenbeck process with correlation time 3 days: the
+    # lag-1 autocorrelation of a unit-variance path is exp(-1/3) (Uhlenbeck & Ornstein 1930).
+    path = model.environment(design, 200, np.random.default_rng(9))
+    lag1 = np.mean(path[:, 1:] * path[:, :-1])
+    assert abs(lag1 - np.exp(-1 / 3)) < 0.01 and abs(np.mean(path**2) - 1) < 0.01
+
+
+def test_tracking_snapshot_and_invalid_parameters() -> None:
+    from driftscreen.niche import EnvironmentalTracking
+
+    counts = EnvironmentalTracking(20).simulate(Design(depths=np.full(30, 5000)), 2,
+                                                np.random.default_rng(1))
+    assert counts.shape == (2, 30, 20) and np.all(counts.sum(axis=2) == 5000)
+    with pytest.raises(ValueError):
+        EnvironmentalTracking(8)
+    with pytest.raises(ValueError):
+        EnvironmentalTracking(20, strengths=(-0.1,))

@@ -130,10 +130,35 @@ def test_pvalues_agree_with_the_calibration_of_one_statistic():
     loo = leave_one_out(null)
     for s in range(2):
         for g in range(7):
-            assert pvalues[s, g] == pytest.approx(
-                bootstrap_pvalue(observed[s, g], null[:, s, g], "two-sided"), abs=1e-15)
-            np.testing.assert_allclose(loo[:, s, g],
-                                       leave_one_out_pvalues(null[:, s, g], "two-sided"))
+            column = null[:, s, g]
+            reference = bootstrap_pvalue(observed[s, g], column, "two-sided")
+            finite = np.isfinite(column)
+            if reference > 1 / (finite.sum() + 1) + 1e-12:  # within the replicates' range
+                assert pvalues[s, g] == pytest.approx(reference, abs=1e-15)
+            else:  # beyond every replicate: the normal tail, below 1 / (n + 1)
+                assert 0 < pvalues[s, g] <= reference
+            expected = leave_one_out_pvalues(column, "two-sided")
+            farthest = np.nanargmax(np.abs(column - np.nanmedian(column)))
+            inside = np.isfinite(expected) & (np.arange(49) != farthest)
+            np.testing.assert_allclose(loo[inside, s, g], expected[inside])
+            assert loo[farthest, s, g] <= expected[farthest]
+
+
+def test_the_tail_beyond_the_replicates_orders_departures():
+    rng = np.random.default_rng(6)
+    null = rng.normal(size=(99, 1, 1))
+    far = np.array([4.0, 6.0, 10.0])
+    pvalues = [two_sided_pvalues(np.array([[x]]), null)[0][0, 0] for x in far]
+    assert 0 < pvalues[2] < pvalues[1] < pvalues[0] < 1 / 100
+    # Far out, the tail ratio is that of the normal law (log-probabilities of scipy).
+    scale = np.sqrt(np.mean((null - np.median(null)) ** 2))
+    boundary = np.max(np.abs(null - np.median(null)))
+    ratio = stats.norm.sf(10.0 / scale) / stats.norm.sf(boundary / scale)
+    assert pvalues[2] == pytest.approx(ratio / 100, rel=0.05)
+    # A discrete law (one replicate in a hundred differs) gets no tail: 1 / (n + 1).
+    degenerate = np.zeros((99, 1, 1))
+    degenerate[7] = 1.0
+    assert two_sided_pvalues(np.array([[5.0]]), degenerate)[0][0, 0] == pytest.approx(1 / 100)
 
 
 def test_pooled_pvalues_count_the_reference_at_least_as_large():

@@ -8,6 +8,11 @@ dataset (times, depths) like the neutral simulator:
 * :class:`NoisyLotkaVolterra` -- competing taxa in a generalised Lotka-Volterra community
   with environmental noise and a small immigration flux (Lotka 1925; Volterra 1926;
   Stein et al. 2013, PLoS Comput. Biol. 9:e1003388; Fisher & Mehta 2014, PNAS 111:13111).
+* :class:`EnvironmentalTracking` -- a neutral community in which a few taxa, of known
+  strengths, also track a fluctuating environment (the per-taxon scan's planted truth).
+
+Each exposes ``departures``: how far each taxon departs from neutral drift, by the
+parameters its simulation draws first.
 
 Both integrate absolute abundances x in log space with one shared step: over a sub-step h
 with frozen coefficients, dx = x (g - c x) dt + sqrt(s) x dW (Ito) has the solution
@@ -28,6 +33,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from driftscreen.dataset import Design
+from driftscreen.neutral.dirichlet import log_standard_gamma
+from driftscreen.neutral.model import NeutralModel
+from driftscreen.neutral.simulate import simulate_abundances
 
 
 def sequence_counts(log_abundance: np.ndarray, depths: np.ndarray,
@@ -190,6 +198,18 @@ class StochasticLogistic(_SampledCommunity):
                 log_x = _logistic_step(log_x, 1.0 / tau, crowding, sigma / tau, gap / n_sub, rng)
             path[:, t] = log_x
         return path
+
+    def departures(self, n_replicates: int, rng: np.random.Generator) -> np.ndarray:
+        """How far each taxon departs from neutral drift, ``(R, K)``: its carrying capacity.
+
+        Every taxon has the same multiplicative noise sigma, so its variance grows as the
+        square of its share p, against p (1 - p)/(1 + theta) under drift at a common theta:
+        the ratio grows with the share, i.e. with K_i. (A fitted theta absorbs much of the
+        shared noise, so the scan then flags both ends of the abundance range.) ``rng`` in the state
+        :meth:`simulate` starts from gives the capacities that simulation uses (they are
+        its first draw).
+        """
+        return self.draw_capacities(n_replicates, rng)
 
     def _log_abundances(self, design: Design, n_replicates: int,
                         rng: np.random.Generator) -> np.ndarray:
@@ -361,6 +381,17 @@ class NoisyLotkaVolterra(_SampledCommunity):
             path[:, :, t] = log_x
         return path
 
+    def departures(self, n_replicates: int, rng: np.random.Generator) -> np.ndarray:
+        """How far each taxon departs from neutral drift, ``(R, K)``: its carrying capacity.
+
+        As in :meth:`StochasticLogistic.departures`: the environmental noise is the same
+        for every taxon, so the excess of its variance over drift grows with its share, set
+        by K_i (competition lowers every share by a similar factor). ``rng`` in the state
+        :meth:`simulate` starts from gives that simulation's capacities (the parameters
+        are its first draw).
+        """
+        return self.draw_parameters(n_replicates, rng).capacity
+
     @property
     def _max_step(self) -> float:
         return 0.5 * self.timescale / self.substeps
@@ -376,3 +407,83 @@ class NoisyLotkaVolterra(_SampledCommunity):
         if design.times is None:
             return settled
         return self.integrate_log(settled, parameters, design.times, rng)[:, 0]
+
+
+@dataclass(frozen=True)
+class EnvironmentalTracking(_SampledCommunity):
+    """A neutral community in which a few taxa track a fluctuating environment.
+
+    Every taxon drifts neutrally (Wright-Fisher diffusion with immigration at ``theta`` and
+    ``rate``, metacommunity shares log-normal with log-sd ``spread``), but the abundance of
+    responding taxon i is multiplied by exp(s_i E_i(t)), with E_i an independent stationary
+    Ornstein-Uhlenbeck process of unit variance and correlation time ``timescale`` days:
+    species sorting along a fluctuating environmental factor (Leibold et al. 2004, Ecol.
+    Lett. 7:601), on top of drift. The strengths s_i are ``strengths``, given to as many
+    taxa drawn at random among the more abundant half of the metacommunity (so that each is
+    tested on its own, not in a pool of rare taxa); the others have s_i = 0 and stay neutral
+    apart from the renormalisation. Snapshot samples are independent stationary communities
+    with independent environments.
+    """
+
+    n_taxa: int
+    strengths: tuple[float, ...] = (0.3, 0.5, 0.7, 0.9, 1.1)
+    theta: float = 100.0
+    rate: float = 0.3
+    timescale: float = 5.0
+    spread: float = 1.5
+
+    def __post_init__(self) -> None:
+        if self.n_taxa < 2 * len(self.strengths):
+            raise ValueError("n_taxa must be at least twice the number of responding taxa")
+        if min(self.strengths, default=0.0) < 0:
+            raise ValueError("strengths must be non-negative")
+        if not (self.theta > 0 and self.rate > 0 and self.timescale > 0):
+            raise ValueError("theta, rate and timescale must be positive")
+
+    def draw_community(self, n_replicates: int,
+                       rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+        """Metacommunity shares p and response strengths s, both ``(R, K)``."""
+        weights = np.exp(rng.normal(0.0, self.spread, (n_replicates, self.n_taxa)))
+        p = weights / weights.sum(axis=1, keepdims=True)
+        abundant = np.argsort(-p, axis=1)[:, :self.n_taxa // 2]
+        chosen = rng.permuted(abundant, axis=1)[:, :len(self.strengths)]
+        strengths = np.zeros_like(p)
+        np.put_along_axis(strengths, chosen, np.asarray(self.strengths, dtype=np.float64)[None],
+                          axis=1)
+        return p, strengths
+
+    def departures(self, n_replicates: int, rng: np.random.Generator) -> np.ndarray:
+        """How far each taxon departs from neutral drift, ``(R, K)``: its strength s_i.
+
+        ``rng`` in the state :meth:`simulate` starts from gives that simulation's strengths
+        (the community is its first draw).
+        """
+        return self.draw_community(n_replicates, rng)[1]
+
+    def environment(self, design: Design, n_replicates: int,
+                    rng: np.random.Generator) -> np.ndarray:
+        """E_i(t), ``(R, T, K)``: stationary unit Ornstein-Uhlenbeck paths (independent
+        draws for a snapshot design)."""
+        shape = (n_replicates, design.n_samples, self.n_taxa)
+        noise = rng.standard_normal(shape)
+        if design.times is None:
+            return noise
+        keep = np.exp(-np.diff(design.times) / self.timescale)
+        path = np.empty(shape)
+        path[:, 0] = noise[:, 0]
+        for t, rho in enumerate(keep, 1):
+            path[:, t] = rho * path[:, t - 1] + np.sqrt(1.0 - rho * rho) * noise[:, t]
+        return path
+
+    def _log_abundances(self, design: Design, n_replicates: int,
+                        rng: np.random.Generator) -> np.ndarray:
+        p, strengths = self.draw_community(n_replicates, rng)
+        if design.times is None:
+            shapes = np.repeat((self.theta * p)[:, None, :], design.n_samples, axis=1)
+            drift = log_standard_gamma(shapes, rng)
+        else:
+            with np.errstate(divide="ignore"):
+                drift = np.log(np.concatenate([
+                    simulate_abundances(NeutralModel(row, self.theta, self.rate), design.times,
+                                        1, rng) for row in p]))
+        return drift + strengths[:, None, :] * self.environment(design, n_replicates, rng)

@@ -46,7 +46,11 @@ kept for every replicate, so that a row of the scan is the same set of taxa in t
 and in the replicates.
 
 p-values. Each effect gets a two-sided bootstrap p-value against the taxon's own
-replicates, (1 + #{replicates at least as far from their median}) / (B + 1). A taxon's
+replicates, (1 + #{replicates at least as far from their median}) / (B + 1); an effect
+beyond every replicate gets 1/(B + 1) times the tail of a normal law fitted to the
+replicates beyond the farthest of them (a conditional tail extrapolation, in the spirit of
+Knijnenburg et al. 2009, Bioinformatics 25:i161, who fit a generalised Pareto tail), so
+that strong departures stay ordered past the resolution of B replicates. A taxon's
 combined p-value is that of -log10 of the harmonic mean p-value (Wilson 2019, PNAS
 116:1195) of its effects' p-values, calibrated against the same quantity of the
 replicates' leave-one-out p-values, pooled over every taxon of the dataset: each taxon's
@@ -88,6 +92,8 @@ OCCUPANCY, EXPECTED, VARIANCE_RATIO, LAG_CORRELATION, NEUTRAL_LAG = range(5)
 DIRECTIONS = {"occupancy": ("more frequent", "less frequent"),
               "variability": ("more variable", "less variable"),
               "persistence": ("more persistent", "less persistent")}
+#: Floor of the normal tail ratio, so that harmonic means of p-values stay finite.
+SMALLEST_RATIO = 1e-300
 #: Quantiles of the replicates' occupancy that bound the neutral band.
 BAND = (0.025, 0.975)
 
@@ -237,37 +243,85 @@ def effects(measures: np.ndarray, scan: TaxonScan) -> np.ndarray:
     return np.stack(rows, axis=-2)
 
 
-def two_sided_pvalues(observed: np.ndarray, null: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Bootstrap p-values and null medians of ``observed`` ``(S, G)`` against ``null`` ``(B, S, G)``.
+def tested_scale(values: np.ndarray) -> np.ndarray:
+    """Effects ``(..., S, G)`` on the scale their p-values are taken on: the variance ratio
+    as asinh (about log 2r for large r, defined for the negative ratios a sampling-corrected
+    variance can give), the others as they are. Monotone, so the bootstrap p-values within
+    the replicates' range are unchanged in law; it makes the ratio's right-skewed law closer
+    to the normal whose tail :func:`tail_ratio` extends."""
+    out = np.array(values, dtype=np.float64, copy=True)
+    out[..., 1, :] = np.arcsinh(out[..., 1, :])
+    return out
 
-    p = (1 + #{finite replicates at least as far from their median}) / (n + 1), NaN where
-    the observed value is undefined or no replicate is finite.
+
+def tail_ratio(distance: np.ndarray, boundary: np.ndarray, scale: np.ndarray,
+               n: np.ndarray) -> np.ndarray:
+    """P(D > distance | D > boundary) for D = |normal(0, scale)|, in [0, 1].
+
+    The normal tail beyond the farthest of ``n`` replicates, Phi(-distance/scale) /
+    Phi(-boundary/scale), from log-probabilities (scipy.special.log_ndtr) so that it stays
+    finite far out. Only where the replicates look normal in their tail: 1 (no extension)
+    where the farthest lies more than sqrt(2 log 2n) + 1 scales out (the largest of n
+    normal distances is about sqrt(2 log 2n); heavy tails and discrete laws, such as the
+    occupancy of a taxon seen in almost every sample, lie beyond), or where there is no scale.
     """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        limit = np.sqrt(2.0 * np.log(2.0 * np.maximum(n, 1))) + 1.0
+        usable = (scale > 0) & (boundary <= limit * scale)
+        log_ratio = (special.log_ndtr(-distance / scale) - special.log_ndtr(-boundary / scale))
+        ratio = np.minimum(np.exp(log_ratio), 1.0)
+    return np.where(usable & np.isfinite(ratio), np.maximum(ratio, SMALLEST_RATIO), 1.0)
+
+
+def distances(null: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Finite counts ``(S, G)``, medians ``(S, G)`` and distances from them ``(B, S, G)``
+    (-inf for undefined replicates)."""
     finite = np.isfinite(null)
     n = finite.sum(axis=0)
     with np.errstate(invalid="ignore"):
         center = np.where(n > 0, np.nanmedian(np.where(n > 0, null, 0.0), axis=0), np.nan)
-        hits = np.count_nonzero(finite & (np.abs(null - center) >= np.abs(observed - center)),
-                                axis=0)
-    pvalues = np.where(np.isfinite(observed) & (n > 0), (1.0 + hits) / (n + 1.0), np.nan)
-    return pvalues, center
+    return n, center, np.where(finite, np.abs(null - center), -np.inf)
+
+
+def two_sided_pvalues(observed: np.ndarray, null: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Bootstrap p-values and null medians of ``observed`` ``(S, G)`` against ``null`` ``(B, S, G)``.
+
+    p = (1 + #{finite replicates at least as far from their median}) / (n + 1); beyond the
+    farthest replicate, 1/(n + 1) times the normal tail ratio :func:`tail_ratio` (scale:
+    the replicates' root-mean-square distance from their median), so that p-values keep
+    ordering taxa past the resolution of B replicates. NaN where the observed value is
+    undefined or no replicate is finite.
+    """
+    n, center, score = distances(null)
+    distance = np.abs(observed - center)
+    hits = np.count_nonzero(score >= distance, axis=0)
+    finite_score = np.where(np.isfinite(score), score, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        scale = np.sqrt((finite_score**2).sum(axis=0) / n)
+        beyond = tail_ratio(distance, score.max(axis=0), scale, n) / (n + 1.0)
+    pvalues = np.where(hits > 0, (1.0 + hits) / (n + 1.0), beyond)
+    return np.where(np.isfinite(observed) & (n > 0), pvalues, np.nan), center
 
 
 def leave_one_out(null: np.ndarray) -> np.ndarray:
     """Each replicate's two-sided p-value against the others, ``(B, S, G)``; NaN stays NaN.
 
     (1 + #others at least as far from the median) / (n - 1 + 1), as
-    :func:`driftscreen.calibrate.leave_one_out_pvalues` does for one column.
+    :func:`driftscreen.calibrate.leave_one_out_pvalues` does for one column; the farthest
+    replicate, beyond all others, gets the tail of :func:`two_sided_pvalues` with the
+    others' boundary and scale.
     """
-    finite = np.isfinite(null)
-    n = finite.sum(axis=0)
-    with np.errstate(invalid="ignore"):
-        center = np.nanmedian(np.where(n > 0, null, 0.0), axis=0)
-    score = np.where(finite, np.abs(null - center), -np.inf)
+    n, _, score = distances(null)
     below = stats.rankdata(score, method="min", axis=0) - 1 - (null.shape[0] - n)
+    at_least = n - below
+    ordered = np.sort(score, axis=0)
+    finite_score = np.where(np.isfinite(score), score, 0.0)
+    squares = (finite_score**2).sum(axis=0)
     with np.errstate(divide="ignore", invalid="ignore"):
-        out = (n - below) / n
-    return np.where(finite & (n >= 2), out, np.nan)
+        others_scale = np.sqrt(np.maximum(squares - finite_score**2, 0.0) / (n - 1))
+        beyond = tail_ratio(score, ordered[-2], others_scale, n - 1)
+        out = np.where(at_least > 1, at_least, beyond) / n
+    return np.where(np.isfinite(score) & (n >= 2), out, np.nan)
 
 
 def hmp_statistic(pvalues: np.ndarray) -> np.ndarray:
@@ -304,8 +358,10 @@ def scan_table(scan: TaxonScan, counts: np.ndarray, design: Design, observed: np
     ``members`` its number of taxa.
     """
     observed_effects, null_effects = effects(observed, scan), effects(null, scan)
-    pvalues, center = two_sided_pvalues(observed_effects, null_effects)
-    combined = pooled_pvalues(hmp_statistic(pvalues), hmp_statistic(leave_one_out(null_effects)))
+    pvalues, center = two_sided_pvalues(tested_scale(observed_effects),
+                                        tested_scale(null_effects))
+    combined = pooled_pvalues(hmp_statistic(pvalues),
+                              hmp_statistic(leave_one_out(tested_scale(null_effects))))
     band = np.quantile(null[:, OCCUPANCY], BAND, axis=0)
     mean = scan.units.sums(counts / design.depths[:, None]).mean(axis=0)
     columns: dict[str, np.ndarray] = {

@@ -24,10 +24,18 @@ Every Wright-Fisher community of the new collections has 10^4 to 10^6 individual
 per day, 10 to 200 generations per day; 15 to 100 taxa, depths 2,000 to 20,000 with and
 without a spread. Niche collections (power): the stochastic logistic model (Grilli 2020) and
 the noisy generalised Lotka-Volterra model, 40 taxa, 100 daily samples, depth 10^4, with
-multinomial reads and with Dirichlet-multinomial reads at C = 300.
+multinomial reads and with Dirichlet-multinomial reads at C = 300; and **tracking**, a neutral
+community in which five taxa of known strengths also track a fluctuating environment
+(:class:`driftscreen.niche.EnvironmentalTracking`), the planted truth of the per-taxon scan.
 
 It reports, per statistic and collection, the rejection rate at a level alpha with a Wilson
-95% interval (Wilson 1927, JASA 22:209). Run the whole study with
+95% interval (Wilson 1927, JASA 22:209), and for the per-taxon scan
+(:mod:`driftscreen.taxon_scan`) the share of neutral datasets with any taxon at q <= 0.05,
+a Kolmogorov-Smirnov check that per-taxon p-values of neutral data are uniform (one taxon
+per dataset, drawn at random, so that the p-values are independent) and, on niche data,
+the recall of the five taxa with the largest true departures (the ``departures`` of the
+niche models: the responding taxa of the tracking collection, the largest carrying
+capacities of the others). Run the whole study with
 ``python -m driftscreen.validation`` (see ``--help``); a small version runs in the test suite.
 """
 
@@ -44,7 +52,7 @@ from functools import partial
 import numpy as np
 import pandas as pd
 from joblib import Parallel, delayed
-from scipy.stats import binomtest
+from scipy.stats import binomtest, kstest
 
 from driftscreen import __version__, seeds
 from driftscreen.calibrate import correlation_times, neutrality_test
@@ -61,8 +69,10 @@ from driftscreen.neutral.wright_fisher import (
     wright_fisher_compositions,
     wright_fisher_for,
 )
-from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic
+from driftscreen.niche import EnvironmentalTracking, NoisyLotkaVolterra, StochasticLogistic
+from driftscreen.results import NeutralityResult
 from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
+from driftscreen.taxon_scan import LEVEL as TAXON_LEVEL
 
 #: Individuals in the stationary collection's discrete Wright-Fisher community (at least).
 WRIGHT_FISHER_SIZE = 2000
@@ -83,13 +93,13 @@ MAX_GENERATIONS_PER_DAY = 200.0
 MAX_GENERATIONS = 100_000
 
 NEUTRAL_GENERATORS = ("exact", "wright-fisher")
-NICHE_GENERATORS = ("logistic", "lotka-volterra")
+NICHE_GENERATORS = ("logistic", "lotka-volterra", "tracking")
 NOISE_PRECISIONS = {"noise100": 100.0, "noise300": 300.0, "noise1000": 1000.0}
 NICHE_NOISE_PRECISION = 300.0
 NEUTRAL_COLLECTIONS = ("stationary", "disturbed", *NOISE_PRECISIONS, "lognormal-noise",
                        "short")
 NICHE_COLLECTIONS = ("logistic", "lotka-volterra", "logistic-noise300",
-                     "lotka-volterra-noise300")
+                     "lotka-volterra-noise300", "tracking")
 COLLECTIONS = NEUTRAL_COLLECTIONS + NICHE_COLLECTIONS
 #: Relative size of the lognormal-noise collection (a second, optional noise form).
 LOGNORMAL_SHARE = 0.5
@@ -441,7 +451,8 @@ def wright_fisher_counts(model: NeutralModel, design: Design,
     return simulate_wright_fisher(**settings, n_replicates=1, rng=rng)[0]
 
 
-def niche_reads(community: StochasticLogistic | NoisyLotkaVolterra, design: Design,
+def niche_reads(community: StochasticLogistic | NoisyLotkaVolterra | EnvironmentalTracking,
+                design: Design,
                 read_precision: float, rng: np.random.Generator) -> np.ndarray:
     """Counts (T, K) of one niche community, Dirichlet-multinomial at finite precision."""
     if np.isinf(read_precision):
@@ -461,6 +472,9 @@ def simulate_scenario(scenario: Scenario, seed: int) -> Dataset:
     elif scenario.generator == "lotka-volterra":
         counts = niche_reads(NoisyLotkaVolterra(scenario.n_taxa), design,
                              scenario.read_precision, rng)
+    elif scenario.generator == "tracking":
+        counts = niche_reads(EnvironmentalTracking(scenario.n_taxa), design,
+                             scenario.read_precision, rng)
     elif scenario.population_size > 0:
         design, counts = wright_fisher_community(scenario, design, rng)
     else:
@@ -471,6 +485,70 @@ def simulate_scenario(scenario: Scenario, seed: int) -> Dataset:
         else:
             counts = simulate(model, design, 1, rng)[0]
     return as_dataset(scenario.name, counts, design)
+
+
+#: Stream purpose of the random taxon whose p-values enter the uniformity check.
+TAXON_PICK = 101
+#: How many of the largest true departures the niche recall counts.
+TOP_DEPARTURES = 5
+#: Per-taxon p-value columns of the scan, and their names in the study's table.
+TAXON_PVALUES = {"occupancy_p": "taxon_p_occupancy", "variability_p": "taxon_p_variability",
+                 "persistence_p": "taxon_p_persistence", "combined_p": "taxon_p_combined"}
+NICHE_MODELS = {"logistic": StochasticLogistic, "lotka-volterra": NoisyLotkaVolterra,
+                "tracking": EnvironmentalTracking}
+
+
+def niche_departures(scenario: Scenario, seed: int) -> np.ndarray | None:
+    """The true departure of every simulated taxon of a niche scenario, ``(K,)``; None if
+    neutral. Drawn from the state :func:`simulate_scenario` simulates the community from."""
+    if scenario.generator not in NICHE_MODELS:
+        return None
+    rng = seeds.generator(seeds.dataset_stream(seed, scenario.name))
+    scenario.design_spec.draw(rng)
+    return NICHE_MODELS[scenario.generator](scenario.n_taxa).departures(1, rng)[0]
+
+
+def lead_taxon(label: str) -> str:
+    """The taxon id a scan row is named by ('taxon_07 +3 rare' -> 'taxon_07')."""
+    return label.split(" ")[0]
+
+
+def random_informative(scan: pd.DataFrame, column: str, rng: np.random.Generator) -> float:
+    """The p-value in ``column`` of a taxon drawn at random among those it informs on.
+
+    A taxon detected in every sample of nearly every replicate (95% band of occupancy
+    [1, 1]) has no information in its occupancy (ties give p near 1); it is left out of
+    the occupancy draw, which depends on the replicates only, not on the observed value.
+    """
+    if column not in scan:
+        return np.nan
+    values = scan[column].to_numpy(dtype=float)
+    eligible = np.isfinite(values)
+    if column == "occupancy_p":
+        eligible &= scan["occupancy_low"].to_numpy(dtype=float) < scan["occupancy_high"]
+    return float(rng.choice(values[eligible])) if eligible.any() else np.nan
+
+
+def taxon_columns(result: NeutralityResult, scenario: Scenario, seed: int) -> dict:
+    """The per-taxon scan's measures for the study's table (see the module docstring)."""
+    scan = result.taxa
+    q = scan["q_value"].to_numpy(dtype=float)
+    rng = seeds.generator(seeds.substream(seeds.dataset_stream(seed, scenario.name),
+                                          TAXON_PICK))
+    row = {"taxa_units": len(scan), "taxa_flagged": int(np.sum(q <= TAXON_LEVEL)),
+           "taxa_min_q": float(np.nanmin(q)) if np.isfinite(q).any() else np.nan}
+    row.update({name: random_informative(scan, column, rng)
+                for column, name in TAXON_PVALUES.items()})
+    departures = niche_departures(scenario, seed)
+    if departures is not None:
+        width = len(str(scenario.n_taxa))
+        top = {f"taxon_{i + 1:0{width}d}" for i in np.argsort(-departures)[:TOP_DEPARTURES]}
+        leads = [lead_taxon(label) for label in scan["taxon"]]
+        flagged = {taxon for taxon, value in zip(leads, q) if value <= TAXON_LEVEL}
+        first = {leads[i] for i in np.argsort(q, kind="stable")[:TOP_DEPARTURES]}
+        row.update(top_recall=len(top & flagged) / TOP_DEPARTURES,
+                   top_overlap=len(top & first) / TOP_DEPARTURES)
+    return row
 
 
 def run_scenario(scenario: Scenario, seed: int, replicates: int, groupings: int) -> dict:
@@ -484,6 +562,8 @@ def run_scenario(scenario: Scenario, seed: int, replicates: int, groupings: int)
                noise_precision_hat=precision.estimate if precision is not None else np.nan,
                correlation_times=correlation_times(result.model, dataset.design))
     row.update({f"p_{name}": stat.pvalue for name, stat in result.statistics.items()})
+    if result.taxa is not None:
+        row.update(taxon_columns(result, scenario, seed))
     return row
 
 
@@ -621,6 +701,9 @@ COLLECTION_NOTES = {
     "logistic-noise300": "stochastic logistic model, Dirichlet-multinomial reads, C = 300",
     "lotka-volterra-noise300": "noisy generalised Lotka-Volterra model, "
                                "Dirichlet-multinomial reads, C = 300",
+    "tracking": "neutral community (theta 100, rate 0.3 per day) in which five of the more "
+                "abundant taxa also track a fluctuating environment with strengths 0.3-1.1 "
+                "(log-sd of their response), multinomial reads",
 }
 
 
@@ -671,6 +754,61 @@ def power_sections(niche: pd.DataFrame, alpha: float) -> list[str]:
     return parts
 
 
+def any_flag_row(label: str, part: pd.DataFrame) -> str:
+    """A row of the per-taxon table: datasets with any taxon at q <= 0.05 and KS checks."""
+    flagged = part["taxa_flagged"].to_numpy(dtype=float)
+    n, k = int(np.isfinite(flagged).sum()), int(np.sum(flagged > 0))
+    low, high = binomtest(k, n).proportion_ci(method="wilson") if n else (np.nan, np.nan)
+    checks = []
+    for column in TAXON_PVALUES.values():
+        values = part[column].to_numpy(dtype=float) if column in part else np.array([])
+        values = values[np.isfinite(values)]
+        checks.append(f"{kstest(values, 'uniform').pvalue:.3f} ({values.size})"
+                      if values.size >= 5 else "-")
+    share = k / n if n else np.nan
+    return (f"| {label} | {n} | {k} | {share:.3f} | {low:.3f} - {high:.3f} | "
+            + " | ".join(checks) + " |")
+
+
+def taxon_sections(neutral: pd.DataFrame, niche: pd.DataFrame) -> list[str]:
+    """The per-taxon scan: familywise false flags and uniformity on neutral data, recall on
+    niche data."""
+    parts = ["## Per-taxon scan", "",
+             f"Neutral data: datasets with at least one taxon (or pool of rare taxa) at "
+             f"q <= {TAXON_LEVEL:g} (Benjamini-Hochberg across the dataset's taxa; under the "
+             "global null this is the familywise error rate, target at most 0.06), and "
+             "Kolmogorov-Smirnov p-values for the uniformity of per-taxon p-values (one "
+             "taxon per dataset drawn at random, so that they are independent; the number "
+             "of p-values in brackets; bootstrap p-values are discrete in steps of "
+             "1/(B + 1), which the KS test sees only with many datasets).", "",
+             "| collection | datasets | with a flagged taxon | share | 95% interval | KS "
+             "occupancy | KS variability | KS persistence | KS combined |",
+             "|---|---|---|---|---|---|---|---|---|"]
+    if "taxa_flagged" in neutral:
+        for collection, part in neutral.groupby("collection", observed=True):
+            parts.append(any_flag_row(str(collection), part))
+        parts.append(any_flag_row("all neutral", neutral))
+    parts.append("")
+    if len(niche) and "top_recall" in niche:
+        parts += [f"Niche data: the {TOP_DEPARTURES} taxa with the largest true departures "
+                  "(the `departures` of the niche models in `niche.py`: in the tracking "
+                  "collection the five responding taxa; in the others, where every taxon "
+                  "has the same environmental noise, the five largest carrying capacities): "
+                  f"recall, the share of them at q <= {TAXON_LEVEL:g}, and overlap, their "
+                  f"share among the {TOP_DEPARTURES} taxa of smallest q. Where every taxon "
+                  "has the same noise, the fitted theta absorbs most of it, and the taxa that "
+                  "stand out are the two ends of the abundance range, not the largest "
+                  "capacities: there the recall measures that, not the scan's power.", "",
+                  "| collection | datasets | with a flagged taxon | mean flagged taxa | "
+                  "recall of the top 5 | overlap with the first 5 |", "|---|---|---|---|---|---|"]
+        for collection, part in niche.groupby("collection", sort=False):
+            parts.append(f"| {collection} | {len(part)} | {int((part['taxa_flagged'] > 0).sum())}"
+                         f" | {part['taxa_flagged'].mean():.1f} | "
+                         f"{part['top_recall'].mean():.3f} | {part['top_overlap'].mean():.3f} |")
+        parts.append("")
+    return parts
+
+
 def reading_guide() -> list[str]:
     """How the tables were made and how to read them."""
     return [
@@ -706,6 +844,8 @@ def report(neutral: pd.DataFrame, niche: pd.DataFrame, alpha: float, command: st
         parts += false_positive_sections(with_factors(neutral), alpha)
     if len(niche):
         parts += power_sections(niche, alpha)
+    if "taxa_flagged" in pd.concat([neutral, niche]):
+        parts += taxon_sections(neutral, niche)
     estimated = pd.concat([neutral, niche])
     if "noise_precision_hat" in estimated and estimated["noise_precision_hat"].notna().any():
         parts += ["## Estimated read precision", "",

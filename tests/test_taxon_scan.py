@@ -19,7 +19,7 @@ from driftscreen.report.tables import TAXA_COLUMNS, result_taxa_tsv
 from driftscreen.report.text import WIDTH
 from driftscreen.serialize import result_from_dict, result_to_dict
 from driftscreen.synthetic import DesignSpec
-from driftscreen.taxon_scan import (MIN_SHAPE, TaxonScan, across_datasets, detection_depths,
+from driftscreen.taxon_scan import (MIN_SHAPE, SMALLEST_RATIO, TaxonScan, across_datasets, detection_depths,
                                     detection_probability, expected_occupancy, leave_one_out,
                                     pooled_pvalues, scan_units, two_sided_pvalues)
 
@@ -147,15 +147,21 @@ def test_pvalues_agree_with_the_calibration_of_one_statistic():
 def test_the_tail_beyond_the_replicates_orders_departures():
     rng = np.random.default_rng(6)
     null = rng.normal(size=(99, 1, 1))
-    far = np.array([4.0, 6.0, 10.0])
+    center = np.median(null)
+    scale = np.sqrt(np.mean((null - center) ** 2))
+    boundary = np.max(np.abs(null - center))
+    far = center + boundary * np.array([1.05, 1.15, 1.3])
     pvalues = [two_sided_pvalues(np.array([[x]]), null)[0][0, 0] for x in far]
     assert 0 < pvalues[2] < pvalues[1] < pvalues[0] < 1 / 100
-    # Far out, the tail ratio is that of the normal law (log-probabilities of scipy).
-    scale = np.sqrt(np.mean((null - np.median(null)) ** 2))
-    boundary = np.max(np.abs(null - np.median(null)))
-    ratio = stats.norm.sf(10.0 / scale) / stats.norm.sf(boundary / scale)
-    assert pvalues[2] == pytest.approx(ratio / 100, rel=0.05)
-    # A discrete law (one replicate in a hundred differs) gets no tail: 1 / (n + 1).
+    # The tail ratio is that of the normal law (scipy.stats.norm), down to its floor.
+    ratio = stats.norm.sf((far[1] - center) / scale) / stats.norm.sf(boundary / scale)
+    assert pvalues[1] == pytest.approx(max(ratio, SMALLEST_RATIO) / 100, rel=1e-9)
+    assert two_sided_pvalues(np.array([[center + 50.0]]), null)[0][0, 0] == pytest.approx(
+        SMALLEST_RATIO / 100)
+    # Without the tail (a discrete statistic), 1 / (n + 1).
+    assert two_sided_pvalues(np.array([[far[2]]]), null, np.array([False]))[0][0, 0] == \
+        pytest.approx(1 / 100)
+    # A discrete law (one replicate in a hundred differs) gets no tail either.
     degenerate = np.zeros((99, 1, 1))
     degenerate[7] = 1.0
     assert two_sided_pvalues(np.array([[5.0]]), degenerate)[0][0, 0] == pytest.approx(1 / 100)

@@ -29,10 +29,14 @@ neutral replicate:
 * **variability**: the taxon's sampling-corrected variance of relative abundance over
   samples (:func:`driftscreen.statistics.fluctuation_scaling.taxon_moments`) divided by
   the neutral p (1 - p)/(1 + theta) ("more variable" / "less variable");
-* **persistence** (time series): the taxon's own lag correlation between successive
-  samples, 1 - D/(2 V) with D the mean sampling-corrected squared increment and V the
-  corrected variance, minus the shared neutral value, the mean of exp(-rate dt) over
-  successive samples ("more persistent" / "less persistent").
+* **persistence** (time series): how much more the taxon's abundance keeps between
+  successive samples than the shared neutral rate implies, (V (1 - e) - D/2) / V_0, with V
+  its corrected variance, D its mean sampling-corrected squared increment between
+  successive samples, e the mean of exp(-rate dt) over them and V_0 = p (1 - p)/(1 + theta).
+  Under neutrality E[D] = 2 V (1 - e) (design note, section 2), so it is 0 whatever the
+  taxon's variance; V (1 - e) - D/2 estimates its lag covariance minus e V, divided by the
+  neutral variance rather than its own noisy one, which near 0 made the ratio explode
+  ("more persistent" / "less persistent").
 
 The expectations are exact only at stationarity; for a time series conditioned on its
 first sample, and for the estimation of p, theta, the rate and the noise, the parametric
@@ -86,14 +90,15 @@ MIN_SHAPE = 1.0
 #: Level at which a taxon is reported as departing, and its effects named in its direction.
 LEVEL = 0.05
 #: Rows of the per-replicate measures: observed occupancy, expected occupancy, variance
-#: ratio, own lag correlation, neutral lag correlation (the last two for time series).
-OCCUPANCY, EXPECTED, VARIANCE_RATIO, LAG_CORRELATION, NEUTRAL_LAG = range(5)
+#: ratio and, for time series, the persistence contrast.
+OCCUPANCY, EXPECTED, VARIANCE_RATIO, PERSISTENCE = range(4)
 #: Words for an effect above and below its neutral value, by statistic.
 DIRECTIONS = {"occupancy": ("more frequent", "less frequent"),
               "variability": ("more variable", "less variable"),
               "persistence": ("more persistent", "less persistent")}
-#: Floor of the normal tail ratio, so that harmonic means of p-values stay finite.
-SMALLEST_RATIO = 1e-300
+#: Floor of the normal tail ratio: beyond the farthest replicate a p-value is at least this
+#: share of 1/(B + 1), so that a misfit far tail cannot outweigh every replicate.
+SMALLEST_RATIO = 1e-2
 #: Quantiles of the replicates' occupancy that bound the neutral band.
 BAND = (0.025, 0.975)
 
@@ -174,13 +179,11 @@ def expected_occupancy(depths: np.ndarray, p: np.ndarray, theta: np.ndarray,
     return detected @ (counts / counts.sum())
 
 
-def lag_correlations(counts: np.ndarray, depths: np.ndarray, noise: np.ndarray,
-                     variance: np.ndarray) -> np.ndarray:
-    """1 - D / (2 V) per table and unit, ``(R, G)``; NaN where V <= 0.
+def mean_increments(counts: np.ndarray, depths: np.ndarray, noise: np.ndarray) -> np.ndarray:
+    """D: mean over successive samples of the sampling-corrected squared increment, ``(R, G)``.
 
-    D is the mean over successive samples of (Y_t+1 - Y_t)^2 less both samples' sampling
-    variances, estimated as in :func:`taxon_moments` (Y (1 - Y)/(n - 1), scaled for the
-    technical noise g); V the corrected variance.
+    (Y_t+1 - Y_t)^2 less both samples' sampling variances, estimated as in
+    :func:`taxon_moments` (Y (1 - Y)/(n - 1), scaled for the technical noise g).
     """
     depths = np.asarray(depths, dtype=np.float64)
     relative = counts / depths[:, None]
@@ -188,9 +191,7 @@ def lag_correlations(counts: np.ndarray, depths: np.ndarray, noise: np.ndarray,
     scale = depths * (g + (1.0 - g) / depths) / (1.0 - g) / np.maximum(depths - 1.0, 1.0)
     sampling = relative * (1.0 - relative) * scale[:, :, None]
     steps = np.diff(relative, axis=1)
-    increments = (steps * steps - sampling[:, 1:] - sampling[:, :-1]).mean(axis=1)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return np.where(variance > 0, 1.0 - increments / (2.0 * variance), np.nan)
+    return (steps * steps - sampling[:, 1:] - sampling[:, :-1]).mean(axis=1)
 
 
 def neutral_lag_correlation(design: Design, rate: np.ndarray) -> np.ndarray:
@@ -223,9 +224,11 @@ class TaxonScan:
             ratio = np.where(neutral > 0, corrected / neutral, np.nan)
         rows = [occupied, expected, ratio]
         if self.time_series:
-            rows.append(lag_correlations(pooled, design.depths, fit.noise, corrected))
-            rows.append(np.broadcast_to(neutral_lag_correlation(design, fit.rate)[:, None],
-                                        ratio.shape))
+            kept = neutral_lag_correlation(design, fit.rate)[:, None]
+            increments = mean_increments(pooled, design.depths, fit.noise)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                rows.append(np.where(neutral > 0, (corrected * (1.0 - kept) - increments / 2.0)
+                                     / neutral, np.nan))
         return np.stack(rows, axis=1)
 
 
@@ -239,8 +242,13 @@ def effects(measures: np.ndarray, scan: TaxonScan) -> np.ndarray:
     rows = [measures[..., OCCUPANCY, :] - measures[..., EXPECTED, :],
             measures[..., VARIANCE_RATIO, :]]
     if scan.time_series:
-        rows.append(measures[..., LAG_CORRELATION, :] - measures[..., NEUTRAL_LAG, :])
+        rows.append(measures[..., PERSISTENCE, :])
     return np.stack(rows, axis=-2)
+
+
+#: Statistics whose p-values get the normal tail beyond the farthest replicate (not the
+#: occupancy: a share of samples is discrete, in steps of 1/T).
+TAILED = np.array([False, True, True])
 
 
 def tested_scale(values: np.ndarray) -> np.ndarray:
@@ -283,13 +291,15 @@ def distances(null: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return n, center, np.where(finite, np.abs(null - center), -np.inf)
 
 
-def two_sided_pvalues(observed: np.ndarray, null: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def two_sided_pvalues(observed: np.ndarray, null: np.ndarray, tailed: np.ndarray | bool = True
+                      ) -> tuple[np.ndarray, np.ndarray]:
     """Bootstrap p-values and null medians of ``observed`` ``(S, G)`` against ``null`` ``(B, S, G)``.
 
     p = (1 + #{finite replicates at least as far from their median}) / (n + 1); beyond the
     farthest replicate, 1/(n + 1) times the normal tail ratio :func:`tail_ratio` (scale:
     the replicates' root-mean-square distance from their median), so that p-values keep
-    ordering taxa past the resolution of B replicates. NaN where the observed value is
+    ordering taxa past the resolution of B replicates; only for the statistics (rows)
+    where ``tailed`` (``(S,)`` or one value) is true. NaN where the observed value is
     undefined or no replicate is finite.
     """
     n, center, score = distances(null)
@@ -298,18 +308,19 @@ def two_sided_pvalues(observed: np.ndarray, null: np.ndarray) -> tuple[np.ndarra
     finite_score = np.where(np.isfinite(score), score, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         scale = np.sqrt((finite_score**2).sum(axis=0) / n)
-        beyond = tail_ratio(distance, score.max(axis=0), scale, n) / (n + 1.0)
+        ratio = tail_ratio(distance, score.max(axis=0), scale, n)
+        beyond = np.where(np.asarray(tailed)[..., None], ratio, 1.0) / (n + 1.0)
     pvalues = np.where(hits > 0, (1.0 + hits) / (n + 1.0), beyond)
     return np.where(np.isfinite(observed) & (n > 0), pvalues, np.nan), center
 
 
-def leave_one_out(null: np.ndarray) -> np.ndarray:
+def leave_one_out(null: np.ndarray, tailed: np.ndarray | bool = True) -> np.ndarray:
     """Each replicate's two-sided p-value against the others, ``(B, S, G)``; NaN stays NaN.
 
     (1 + #others at least as far from the median) / (n - 1 + 1), as
     :func:`driftscreen.calibrate.leave_one_out_pvalues` does for one column; the farthest
     replicate, beyond all others, gets the tail of :func:`two_sided_pvalues` with the
-    others' boundary and scale.
+    others' boundary and scale (where ``tailed``).
     """
     n, _, score = distances(null)
     below = stats.rankdata(score, method="min", axis=0) - 1 - (null.shape[0] - n)
@@ -319,7 +330,8 @@ def leave_one_out(null: np.ndarray) -> np.ndarray:
     squares = (finite_score**2).sum(axis=0)
     with np.errstate(divide="ignore", invalid="ignore"):
         others_scale = np.sqrt(np.maximum(squares - finite_score**2, 0.0) / (n - 1))
-        beyond = tail_ratio(score, ordered[-2], others_scale, n - 1)
+        beyond = np.where(np.asarray(tailed)[..., None],
+                          tail_ratio(score, ordered[-2], others_scale, n - 1), 1.0)
         out = np.where(at_least > 1, at_least, beyond) / n
     return np.where(np.isfinite(score) & (n >= 2), out, np.nan)
 
@@ -358,10 +370,11 @@ def scan_table(scan: TaxonScan, counts: np.ndarray, design: Design, observed: np
     ``members`` its number of taxa.
     """
     observed_effects, null_effects = effects(observed, scan), effects(null, scan)
+    tailed = TAILED[:len(scan.statistics)]
     pvalues, center = two_sided_pvalues(tested_scale(observed_effects),
-                                        tested_scale(null_effects))
+                                        tested_scale(null_effects), tailed)
     combined = pooled_pvalues(hmp_statistic(pvalues),
-                              hmp_statistic(leave_one_out(tested_scale(null_effects))))
+                              hmp_statistic(leave_one_out(tested_scale(null_effects), tailed)))
     band = np.quantile(null[:, OCCUPANCY], BAND, axis=0)
     mean = scan.units.sums(counts / design.depths[:, None]).mean(axis=0)
     columns: dict[str, np.ndarray] = {

@@ -434,3 +434,50 @@ def test_bad_command_lines_are_one_line_errors(argv, capsys) -> None:
     assert stopped.value.code == 2
     message = capsys.readouterr().err
     assert message.count("\n") == 1 and "error:" in message and "Traceback" not in message
+
+
+# --- the per-taxon scan --------------------------------------------------------------------
+
+@pytest.mark.slow
+def test_neutral_datasets_rarely_flag_a_taxon(neutral_study) -> None:
+    # Under the global null Benjamini-Hochberg at 0.05 controls the familywise rate at 0.05
+    # (Benjamini & Hochberg 1995): datasets with any taxon at q <= 0.05 are at most
+    # Binomial(n, 0.05), bounded here at its 0.0005 upper tail (common practice).
+    flagged = int((neutral_study["taxa_flagged"] > 0).sum())
+    assert flagged <= stats.binom.isf(0.0005, len(neutral_study), 0.05)
+    assert (neutral_study["taxa_units"] >= 2).all()
+    for column in ("taxon_p_variability", "taxon_p_combined"):
+        values = neutral_study[column].dropna()
+        assert len(values) >= 40 and values.between(0, 1).all()
+
+
+@pytest.mark.slow
+def test_tracking_taxa_are_flagged_first() -> None:
+    study = run_study(niche_scenarios(4, "tracking"), replicates=99, groupings=40, seed=6,
+                      jobs=1)
+    # Five of 40 taxa respond to the environment: by chance, 5 of the 5 taxa of smallest q
+    # would hold 5/40 of them on average (overlap 0.125).
+    assert study["top_overlap"].mean() >= 0.3
+    assert (study["taxa_flagged"] > 0).sum() >= 2
+
+
+def test_report_has_the_per_taxon_section() -> None:
+    rows = []
+    for index, (collection, generator) in enumerate([("stationary", "exact"),
+                                                     ("tracking", "tracking")] * 6):
+        rows.append({"name": f"d{index}", "collection": collection, "generator": generator,
+                     "interval": 1.0, "theta": 50.0, "n_taxa": 40, "n_samples": 100,
+                     "correlation_times": 20.0, "disturbance": "none",
+                     "disturbance_strength": np.nan, "p_combined": 0.5,
+                     "taxa_units": 20, "taxa_flagged": index % 4 == 0,
+                     "taxon_p_occupancy": (index + 0.5) / 12,
+                     "taxon_p_variability": (index + 0.5) / 12,
+                     "taxon_p_persistence": np.nan, "taxon_p_combined": (index + 0.5) / 12,
+                     "top_recall": 0.4, "top_overlap": 0.6})
+    frame = pd.DataFrame(rows)
+    neutral, niche = frame[frame.generator == "exact"], frame[frame.generator == "tracking"]
+    text = report(neutral, niche.drop(columns=["taxa_flagged"]).assign(
+        taxa_flagged=niche["taxa_flagged"].astype(int)), 0.05, "cmd", 1.0)
+    assert "## Per-taxon scan" in text
+    assert "| stationary | 6 |" in text and "| tracking | 6 |" in text
+    assert "0.400 | 0.600 |" in text

@@ -468,10 +468,6 @@ def power_command(design: PowerDesign, *, alternative: str = "logistic",
     report = result.summary()
     if output:
         atomic_write_text(output, report)
-    if taxa:
-        from driftscreen.report.tables import result_taxa_tsv
-
-        atomic_write_text(taxa, result_taxa_tsv(result))
     if table:
         atomic_write_text(table, result.to_tsv())
     return report

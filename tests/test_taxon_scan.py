@@ -282,3 +282,18 @@ def test_across_datasets_uses_the_cauchy_combination_and_skips_pools():
                                stats.false_discovery_control(across["combined_p"], method="bh"))
     assert across.loc["A", "departing"] == 2 and across.loc["A", "datasets"] == 2
     assert across.loc["A", "directions"] == "more variable in 2, less frequent in 1"
+
+
+def test_a_store_written_without_the_scan_is_refused(tables, tmp_path, capsys):
+    counts, metadata = tables
+    args = ["screen", str(counts), "--metadata", str(metadata), "--dataset-by", "dataset",
+            "--replicates", "9", "--groupings", "10", "--out", str(tmp_path), "--quiet"]
+    assert main(args) == 0
+    rows = (tmp_path / "taxa.tsv").read_text(encoding="utf-8").splitlines()[1:]
+    assert {row.split("\t")[0] for row in rows} == {"pot_1", "pot_2"}
+    settings = tmp_path / ".driftscreen" / "settings.json"
+    stored = json.loads(settings.read_text(encoding="utf-8"))
+    del stored["taxon_scan"]
+    settings.write_text(json.dumps(stored), encoding="utf-8")
+    assert main(args) == 2
+    assert "taxon scan: none there, 1 now" in capsys.readouterr().err

@@ -17,6 +17,7 @@ from driftscreen.files import atomic_write_text
 from driftscreen.neutral.model import NeutralModel, NullOptions
 from driftscreen.neutral.simulate import simulate
 from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
+from driftscreen.taxon_scan import VERSION as TAXON_SCAN_VERSION
 
 if TYPE_CHECKING:
     from driftscreen.power import PowerDesign
@@ -288,6 +289,7 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
     if not influence:
         fingerprint["influence"] = INFLUENCE_OFF
     fingerprint["null"] = {"read_noise": null.noise, "start": null.start}
+    fingerprint["taxon_scan"] = TAXON_SCAN_VERSION
     store = ResultStore.open(out, fingerprint)
     with execution_backend(backend, scheduler, jobs) as n_jobs:
         run = screen(datasets, settings, jobs=n_jobs, store=store, messages=messages,

@@ -85,6 +85,10 @@ from driftscreen.statistics.combination import cauchy_combination, harmonic_mean
 from driftscreen.statistics.fluctuation_scaling import taxon_moments
 from driftscreen.statistics.pooling import group_ids
 
+#: Version of the scan's measures and p-values, part of a screen's settings fingerprint: a
+#: resume store written without the scan (or with another version) is refused, not reused
+#: with taxa missing from taxa.tsv.
+VERSION = 1
 #: Taxa with theta p_i below this are tested in pools of total shape at least this.
 MIN_SHAPE = 1.0
 #: Level at which a taxon is reported as departing, and its effects named in its direction.

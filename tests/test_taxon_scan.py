@@ -297,3 +297,26 @@ def test_a_store_written_without_the_scan_is_refused(tables, tmp_path, capsys):
     settings.write_text(json.dumps(stored), encoding="utf-8")
     assert main(args) == 2
     assert "taxon scan: none there, 1 now" in capsys.readouterr().err
+
+
+def test_a_taxon_departing_in_every_dataset_is_reported_across_the_screen(tmp_path):
+    spec = DesignSpec(n_samples=40, interval=1.0, depth=4000, depth_spread=0.2)
+    datasets = [with_planted_departure(dataset, dataset.taxa.index("taxon_03"))
+                for dataset in neutral_collection(3, spec, 25, 60.0, 0.4, seed=31,
+                                                  prefix="subject")]
+    counts, metadata = write_collection(datasets, tmp_path / "in")
+    out = tmp_path / "out"
+    assert main(["screen", str(counts), "--metadata", str(metadata), "--dataset-by", "dataset",
+                 "--time-by", "day", "--replicates", "99", "--groupings", "10", "--out",
+                 str(out), "--quiet"]) == 0
+    header, *lines = (out / "taxa_across.tsv").read_text(encoding="utf-8").splitlines()
+    rows = {line.split("\t")[0]: dict(zip(header.split("\t"), line.split("\t")))
+            for line in lines}
+    planted = rows["taxon_03"]
+    assert int(planted["datasets"]) == 3 and int(planted["departing"]) >= 2
+    assert float(planted["q_value"]) <= 0.05 and "less frequent in" in planted["directions"]
+    assert lines[0].startswith("taxon_03\t")  # the smallest q comes first
+    report = (out / "report.txt").read_text(encoding="utf-8")
+    section = report[report.index("Taxa departing across datasets"):]
+    assert "taxon_03" in section.splitlines()[4]
+    assert max(len(line) for line in report.splitlines()) <= WIDTH

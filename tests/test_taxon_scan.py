@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from driftscreen.calibrate import bootstrap_pvalue, leave_one_out_pvalues, neutrality_test
+from driftscreen.calibrate import neutrality_test
 from driftscreen.cli import main
 from driftscreen.commands import neutral_collection, write_collection
 from driftscreen.dataset import Dataset, Design
@@ -120,28 +120,41 @@ def test_units_partition_the_taxa_and_pool_only_rare_ones():
         assert p[lead] == p[units.order[start:start + m]].max()
 
 
-def test_pvalues_agree_with_the_calibration_of_one_statistic():
+def equal_tailed(observed: float, null: np.ndarray) -> float:
+    """Twice the smaller one-sided bootstrap p-value, at most 1 (common practice for a
+    two-sided Monte Carlo p-value; Davison & Hinkley 1997, sec. 4.2: (1 + #) / (B + 1))."""
+    null = null[np.isfinite(null)]
+    low = (1 + np.sum(null <= observed)) / (null.size + 1)
+    high = (1 + np.sum(null >= observed)) / (null.size + 1)
+    return min(1.0, 2 * min(low, high))
+
+
+def test_pvalues_are_equal_tailed_bootstrap_pvalues():
     rng = np.random.default_rng(5)
-    null = rng.normal(size=(49, 2, 7))
+    null = rng.gamma(2.0, size=(49, 2, 7))  # skewed
     null[3, 0, 1] = null[10, 1, 4] = np.nan
     null[:, 1, 6] = np.round(null[:, 1, 6])  # ties
-    observed = rng.normal(scale=2.0, size=(2, 7))
+    observed = rng.gamma(2.0, scale=2.0, size=(2, 7))
     pvalues, _ = two_sided_pvalues(observed, null)
     loo = leave_one_out(null)
     for s in range(2):
         for g in range(7):
             column = null[:, s, g]
-            reference = bootstrap_pvalue(observed[s, g], column, "two-sided")
             finite = np.isfinite(column)
-            if reference > 1 / (finite.sum() + 1) + 1e-12:  # within the replicates' range
-                assert pvalues[s, g] == pytest.approx(reference, abs=1e-15)
-            else:  # beyond every replicate: the normal tail, below 1 / (n + 1)
+            reference = equal_tailed(observed[s, g], column)
+            beyond = not (np.nanmin(column) <= observed[s, g] <= np.nanmax(column))
+            if beyond:  # past every replicate on its side: the normal tail, smaller
                 assert 0 < pvalues[s, g] <= reference
-            expected = leave_one_out_pvalues(column, "two-sided")
-            farthest = np.nanargmax(np.abs(column - np.nanmedian(column)))
-            inside = np.isfinite(expected) & (np.arange(49) != farthest)
-            np.testing.assert_allclose(loo[inside, s, g], expected[inside])
-            assert loo[farthest, s, g] <= expected[farthest]
+            else:
+                assert pvalues[s, g] == pytest.approx(reference, abs=1e-15)
+            for b in np.flatnonzero(finite):
+                others = np.delete(column, b)
+                expected = equal_tailed(column[b], others)
+                if np.nanmin(others) <= column[b] <= np.nanmax(others):
+                    assert loo[b, s, g] == pytest.approx(expected, abs=1e-15)
+                else:
+                    assert 0 < loo[b, s, g] <= expected
+            assert np.isnan(loo[~finite, s, g]).all()
 
 
 def test_the_tail_beyond_the_replicates_orders_departures():
@@ -149,22 +162,22 @@ def test_the_tail_beyond_the_replicates_orders_departures():
     null = rng.normal(size=(99, 1, 1))
     center = np.median(null)
     scale = np.sqrt(np.mean((null - center) ** 2))
-    boundary = np.max(np.abs(null - center))
+    boundary = np.max(null) - center
     far = center + boundary * np.array([1.05, 1.15, 1.3])
     pvalues = [two_sided_pvalues(np.array([[x]]), null)[0][0, 0] for x in far]
-    assert 0 < pvalues[2] < pvalues[1] < pvalues[0] < 1 / 100
+    assert 0 < pvalues[2] < pvalues[1] < pvalues[0] < 2 / 100
     # The tail ratio is that of the normal law (scipy.stats.norm), down to its floor.
     ratio = stats.norm.sf((far[1] - center) / scale) / stats.norm.sf(boundary / scale)
-    assert pvalues[1] == pytest.approx(max(ratio, SMALLEST_RATIO) / 100, rel=1e-9)
+    assert pvalues[1] == pytest.approx(2 * max(ratio, SMALLEST_RATIO) / 100, rel=1e-9)
     assert two_sided_pvalues(np.array([[center + 50.0]]), null)[0][0, 0] == pytest.approx(
-        SMALLEST_RATIO / 100)
-    # Without the tail (a discrete statistic), 1 / (n + 1).
+        2 * SMALLEST_RATIO / 100)
+    # Without the tail (a discrete statistic), 2 / (n + 1).
     assert two_sided_pvalues(np.array([[far[2]]]), null, np.array([False]))[0][0, 0] == \
-        pytest.approx(1 / 100)
+        pytest.approx(2 / 100)
     # A discrete law (one replicate in a hundred differs) gets no tail either.
     degenerate = np.zeros((99, 1, 1))
     degenerate[7] = 1.0
-    assert two_sided_pvalues(np.array([[5.0]]), degenerate)[0][0, 0] == pytest.approx(1 / 100)
+    assert two_sided_pvalues(np.array([[5.0]]), degenerate)[0][0, 0] == pytest.approx(2 / 100)
 
 
 def test_pooled_pvalues_count_the_reference_at_least_as_large():

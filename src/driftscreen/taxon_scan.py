@@ -49,10 +49,12 @@ each of which is neutral in its own right. The groups are fixed by the observed 
 kept for every replicate, so that a row of the scan is the same set of taxa in the data
 and in the replicates.
 
-p-values. Each effect gets a two-sided bootstrap p-value against the taxon's own
-replicates, (1 + #{replicates at least as far from their median}) / (B + 1); an effect
-beyond every replicate gets 1/(B + 1) times the tail of a normal law fitted to the
-replicates beyond the farthest of them (a conditional tail extrapolation, in the spirit of
+p-values. Each effect gets an equal-tailed two-sided bootstrap p-value against the
+taxon's own replicates, twice the smaller of (1 + #{replicates <= it}) / (B + 1) and
+(1 + #{replicates >= it}) / (B + 1) (the null laws are skewed: distance from the median
+would let a taxon seen in nearly every sample hide a quarter of absences behind the
+replicates' other tail); an effect beyond every replicate on its side gets 1/(B + 1)
+times the tail of a normal law fitted to the replicates beyond the farthest of them (a conditional tail extrapolation, in the spirit of
 Knijnenburg et al. 2009, Bioinformatics 25:i161, who fit a generalised Pareto tail), so
 that strong departures stay ordered past the resolution of B replicates. A taxon's
 combined p-value is that of -log10 of the harmonic mean p-value (Wilson 2019, PNAS
@@ -285,59 +287,81 @@ def tail_ratio(distance: np.ndarray, boundary: np.ndarray, scale: np.ndarray,
     return np.where(usable & np.isfinite(ratio), np.maximum(ratio, SMALLEST_RATIO), 1.0)
 
 
-def distances(null: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Finite counts ``(S, G)``, medians ``(S, G)`` and distances from them ``(B, S, G)``
-    (-inf for undefined replicates)."""
+def null_summary(null: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Finite counts, medians and root-mean-square distances from them of ``null``
+    ``(B, S, G)`` along the replicates, each ``(S, G)``."""
     finite = np.isfinite(null)
     n = finite.sum(axis=0)
-    with np.errstate(invalid="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore"):
         center = np.where(n > 0, np.nanmedian(np.where(n > 0, null, 0.0), axis=0), np.nan)
-    return n, center, np.where(finite, np.abs(null - center), -np.inf)
+        squares = np.where(finite, (null - center) ** 2, 0.0)
+        scale = np.sqrt(squares.sum(axis=0) / n)
+    return n, center, scale
+
+
+def doubled(low: np.ndarray, high: np.ndarray) -> np.ndarray:
+    """The equal-tailed two-sided p-value: twice the smaller one-sided one, at most 1."""
+    return np.minimum(1.0, 2.0 * np.minimum(low, high))
 
 
 def two_sided_pvalues(observed: np.ndarray, null: np.ndarray, tailed: np.ndarray | bool = True
                       ) -> tuple[np.ndarray, np.ndarray]:
     """Bootstrap p-values and null medians of ``observed`` ``(S, G)`` against ``null`` ``(B, S, G)``.
 
-    p = (1 + #{finite replicates at least as far from their median}) / (n + 1); beyond the
-    farthest replicate, 1/(n + 1) times the normal tail ratio :func:`tail_ratio` (scale:
-    the replicates' root-mean-square distance from their median), so that p-values keep
-    ordering taxa past the resolution of B replicates; only for the statistics (rows)
-    where ``tailed`` (``(S,)`` or one value) is true. NaN where the observed value is
-    undefined or no replicate is finite.
+    Equal-tailed: twice the smaller of (1 + #{replicates <= observed}) / (n + 1) and
+    (1 + #{replicates >= observed}) / (n + 1), at most 1, so that a skewed null law (the
+    occupancy of a taxon seen in nearly every sample) is judged on the side the observed
+    value lies on. Beyond the farthest replicate on its side, the one-sided 1/(n + 1) is
+    multiplied by the normal tail ratio :func:`tail_ratio` (scale: the replicates'
+    root-mean-square distance from their median), so that p-values keep ordering taxa past
+    the resolution of B replicates; only for the statistics (rows) where ``tailed``
+    (``(S,)`` or one value) is true. NaN where the observed value is undefined or no
+    replicate is finite.
     """
-    n, center, score = distances(null)
-    distance = np.abs(observed - center)
-    hits = np.count_nonzero(score >= distance, axis=0)
-    finite_score = np.where(np.isfinite(score), score, 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        scale = np.sqrt((finite_score**2).sum(axis=0) / n)
-        ratio = tail_ratio(distance, score.max(axis=0), scale, n)
-        beyond = np.where(np.asarray(tailed)[..., None], ratio, 1.0) / (n + 1.0)
-    pvalues = np.where(hits > 0, (1.0 + hits) / (n + 1.0), beyond)
+    n, center, scale = null_summary(null)
+    tail = np.asarray(tailed)[..., None]
+    finite = np.isfinite(null)
+    below = np.count_nonzero(finite & (null <= observed), axis=0)
+    above = np.count_nonzero(finite & (null >= observed), axis=0)
+    with np.errstate(invalid="ignore"):
+        lowest = np.nanmin(np.where(finite, null, np.inf), axis=0)
+        highest = np.nanmax(np.where(finite, null, -np.inf), axis=0)
+    low = np.where((below == 0) & tail,
+                   tail_ratio(center - observed, center - lowest, scale, n), 1.0 + below)
+    high = np.where((above == 0) & tail,
+                    tail_ratio(observed - center, highest - center, scale, n), 1.0 + above)
+    pvalues = doubled(low / (n + 1.0), high / (n + 1.0))
     return np.where(np.isfinite(observed) & (n > 0), pvalues, np.nan), center
 
 
 def leave_one_out(null: np.ndarray, tailed: np.ndarray | bool = True) -> np.ndarray:
     """Each replicate's two-sided p-value against the others, ``(B, S, G)``; NaN stays NaN.
 
-    (1 + #others at least as far from the median) / (n - 1 + 1), as
-    :func:`driftscreen.calibrate.leave_one_out_pvalues` does for one column; the farthest
-    replicate, beyond all others, gets the tail of :func:`two_sided_pvalues` with the
-    others' boundary and scale (where ``tailed``).
+    As :func:`two_sided_pvalues` with the other n - 1 replicates as the null: the
+    one-sided counts (1 + #others <= x) / n and (1 + #others >= x) / n, and for the
+    smallest and the largest replicate the tail beyond the nearest other one, with the
+    others' scale (where ``tailed``).
     """
-    n, _, score = distances(null)
-    below = stats.rankdata(score, method="min", axis=0) - 1 - (null.shape[0] - n)
-    at_least = n - below
-    ordered = np.sort(score, axis=0)
-    finite_score = np.where(np.isfinite(score), score, 0.0)
-    squares = (finite_score**2).sum(axis=0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        others_scale = np.sqrt(np.maximum(squares - finite_score**2, 0.0) / (n - 1))
-        beyond = np.where(np.asarray(tailed)[..., None],
-                          tail_ratio(score, ordered[-2], others_scale, n - 1), 1.0)
-        out = np.where(at_least > 1, at_least, beyond) / n
-    return np.where(np.isfinite(score) & (n >= 2), out, np.nan)
+    n, center, _ = null_summary(null)
+    finite = np.isfinite(null)
+    tail = np.asarray(tailed)[..., None]
+    high_filled = np.where(finite, null, np.inf)
+    below = stats.rankdata(high_filled, method="max", axis=0) - 1
+    above = n - stats.rankdata(high_filled, method="min", axis=0)
+    ordered = np.sort(high_filled, axis=0)
+    second_lowest = ordered[1]
+    second_highest = np.take_along_axis(ordered, np.maximum(n - 2, 0)[None], axis=0)[0]
+    squares = np.where(finite, (null - center) ** 2, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        others_scale = np.sqrt(np.maximum(squares.sum(axis=0) - squares, 0.0) / (n - 1))
+        low = np.where((below == 0) & tail,
+                       tail_ratio(center - null, center - second_lowest, others_scale, n - 1),
+                       1.0 + below)
+        high = np.where((above == 0) & tail,
+                        tail_ratio(null - center, second_highest - center, others_scale, n - 1),
+                        1.0 + above)
+        out = doubled(low / n, high / n)
+    return np.where(finite & (n >= 2), out, np.nan)
 
 
 def hmp_statistic(pvalues: np.ndarray) -> np.ndarray:

@@ -3,8 +3,8 @@
 Everything here is deterministic: the same results give the same bytes, whatever the
 number of jobs and whether a run was resumed. TSV numbers are printed with ``%.6g``
 (empty cell when missing); JSON numbers are exact (``repr``), with ``null`` when missing.
-Each dataset's diagnostic tables appear in ``results.json`` column by column, with each
-column's type (:func:`driftscreen.serialize.table_to_dict`). For a dataset with combined
+Each dataset's diagnostic tables and per-taxon scan appear in ``results.json`` column by
+column, with each column's type (:func:`driftscreen.serialize.table_to_dict`). For a dataset with combined
 p <= 0.05, ``influential_sample`` in ``results.tsv`` names its most influential sample and
 ``p_value_without_sample`` is each statistic's p-value without it (the combined one in
 the ``combined`` row); both are empty for the other datasets. ``taxa.tsv`` has a row per
@@ -144,6 +144,7 @@ def dataset_record(outcome: DatasetOutcome, index: int, run: ScreenResult) -> di
     record["diagnostics"] = {name: table_to_dict(table)
                              for name, table in result.diagnostics.items()}
     record["influence"] = influence_to_dict(result.influence)
+    record["taxa"] = None if result.taxa is None else table_to_dict(result.taxa)
     return record
 
 

@@ -14,6 +14,7 @@ from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
 from driftscreen.intake.abundance import (Converted, Depths, check_values, detect_abundance,
                                           to_counts)
+from driftscreen.intake.biom import is_biom, read_biom
 from driftscreen.intake.counts import CountTable, is_long, read_long, read_wide
 from driftscreen.intake.metadata import (Metadata, Times, check_join, dataset_names, read_depths,
                                          read_metadata, read_times)
@@ -126,12 +127,20 @@ def read_datasets(
     """
     check_arguments(layout, orientation, abundance, remainder, min_samples, min_taxa)
     dataset_by = (dataset_by,) if isinstance(dataset_by, str) else tuple(dict.fromkeys(dataset_by))
-    check_options(metadata, sample_id, dataset_by, time_by, depth_by, depth, lineage, rank,
-                  taxon_map)
+    inside = None
+    if is_biom(counts):
+        inside = read_biom(counts, layout=layout, orientation=orientation, sample_id=sample_id,
+                           metadata_given=metadata is not None, lineage=lineage, rank=rank,
+                           taxon_map=taxon_map)
+        lineage = inside.lineage
+    check_options(metadata if inside is None else metadata or inside.samples, sample_id,
+                  dataset_by, time_by, depth_by, depth, lineage, rank, taxon_map)
     parsed_rank = None if rank is None else parse_rank(rank)
     meta = None if metadata is None else read_metadata(file_label(metadata), sample_id)
+    meta = meta if inside is None else inside.metadata_in_use(meta)
     columns = metadata_columns(meta, dataset_by, time_by, depth_by)
-    raw = read_count_table(counts, layout, orientation, lineage, meta)
+    raw = (read_count_table(counts, layout, orientation, lineage, meta) if inside is None
+           else inside.counts)
     table = prepare_table(raw, meta, columns.depth, depth, abundance, remainder, lineage,
                           parsed_rank, taxon_map)
     if meta is not None and columns.datasets:

@@ -33,6 +33,8 @@ from driftscreen.intake.metadata import Metadata
 from driftscreen.intake.tables import TextTable, file_label, quoted_list, read_bytes
 
 HDF5_MAGIC = b"\x89HDF\r\n\x1a\n"
+FORMAT_FIX = "give a BIOM 1.0 (JSON) or 2.1 (HDF5) file"
+JSON_FIELDS = ("rows", "columns", "shape", "data")  # what a reader needs of BIOM 1.0's fields
 INSTALL_FIX = "install the BIOM reader with: pip install 'driftscreen[biom]'"
 SAMPLE_ID_HEADER = "sample id"
 
@@ -165,16 +167,17 @@ def load_reference_table(label: str, raw: bytes):  # -> biom.Table
                          fix=INSTALL_FIX) from None
     if not raw.strip():
         raise InputError("the file is empty", file=label, fix="give a BIOM table")
+    is_hdf5 = raw.startswith(HDF5_MAGIC)
+    document = None if is_hdf5 else json_document(label, raw)
     try:
-        if raw.startswith(HDF5_MAGIC):
-            return table_from_hdf5(label, raw, Table)
-        return Table.from_json(json_document(label, raw))
+        return table_from_hdf5(label, raw, Table) if is_hdf5 else Table.from_json(document)
+    except InputError:
+        raise
     except BiomException as error:
         raise biom_problem(label, raw, error) from None
     except (KeyError, TypeError, ValueError, IndexError, AttributeError) as error:
         raise InputError(f"not a readable BIOM table ({describe(error)})", file=label,
-                         fix="give a BIOM 1.0 (JSON) or 2.1 (HDF5) file, e.g. as written by "
-                             "`biom convert`") from None
+                         fix=FORMAT_FIX) from None
 
 
 def table_from_hdf5(label: str, raw: bytes, table_class: type):
@@ -196,19 +199,22 @@ def table_from_hdf5(label: str, raw: bytes, table_class: type):
 
 def json_document(label: str, raw: bytes) -> dict:
     """The JSON object of a BIOM 1.0 file; invalid JSON is reported at its line and column."""
+    if not raw.lstrip(b"\xef\xbb\xbf \t\r\n").startswith(b"{"):
+        raise InputError("neither BIOM 2.1 (HDF5) nor BIOM 1.0 (JSON) content", file=label,
+                         fix=FORMAT_FIX)
     try:
         document = json.loads(raw.decode("utf-8-sig"))
     except UnicodeDecodeError:
-        raise InputError("neither HDF5 nor UTF-8 JSON", file=label,
-                         fix="give a BIOM 1.0 (JSON) or 2.1 (HDF5) file") from None
+        raise InputError("the JSON is not UTF-8 text", file=label, fix=FORMAT_FIX) from None
     except json.JSONDecodeError as error:
         raise InputError(f"not valid JSON ({error.msg})", file=label,
                          place=f"line {error.lineno}, column {error.colno}",
                          fix="write the BIOM file again (a truncated download or an edit "
                              "may have damaged it)") from None
-    if not isinstance(document, dict):
-        raise InputError("the JSON is not a BIOM table (no top-level object)", file=label,
-                         fix="give a BIOM 1.0 (JSON) or 2.1 (HDF5) file")
+    missing = [name for name in JSON_FIELDS if name not in document]
+    if missing:
+        raise InputError(f"the JSON is not a BIOM table (no field {quoted_list(missing)})",
+                         file=label, fix=FORMAT_FIX)
     return document
 
 
@@ -221,7 +227,7 @@ def biom_problem(label: str, raw: bytes, error: Exception) -> InputError:
                               place=f"{axis} ids", fix=f"give every {axis} a unique id" +
                                   (" (merge the duplicates)" if axis == "observation" else ""))
     return InputError(f"not a readable BIOM table ({describe(error)})", file=label,
-                      fix="give a BIOM 1.0 (JSON) or 2.1 (HDF5) file")
+                      fix=FORMAT_FIX)
 
 
 def stored_ids(raw: bytes, axis: str) -> list[str]:

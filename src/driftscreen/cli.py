@@ -83,13 +83,16 @@ def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = F
     """
     if optional_counts:
         parser.add_argument("counts", nargs="?",
-                            help="abundance table (CSV/TSV, wide or long; .gz allowed) whose "
-                                 "design to plan for; or leave it out and give --taxa, "
-                                 "--samples, --interval and --depth")
+                            help="abundance table (CSV/TSV, wide or long, .gz allowed; or "
+                                 "BIOM) whose design to plan for; or leave it out and give "
+                                 "--taxa, --samples, --interval and --depth")
     else:
-        parser.add_argument("counts", help="abundance table (CSV/TSV, wide or long; .gz allowed)")
+        parser.add_argument("counts", help="abundance table (CSV/TSV, wide or long, .gz "
+                                              "allowed; or BIOM)")
     group = parser.add_argument_group("input")
-    group.add_argument("--metadata", metavar="FILE", help="sample metadata table (CSV/TSV)")
+    group.add_argument("--metadata", metavar="FILE",
+                       help="sample metadata table (CSV/TSV); wins over the sample metadata "
+                            "inside a BIOM file")
     group.add_argument("--sample-id", metavar="COL",
                        help="metadata column holding sample ids (default: the first column)")
     group.add_argument("--dataset-by", metavar="COL[,COL...]", type=column_list, default=[],
@@ -113,10 +116,11 @@ def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = F
     group.add_argument("--orientation", choices=["auto", "taxa-rows", "taxa-columns"],
                        default="auto", help="for wide tables: are taxa rows or columns")
     group.add_argument("--lineage", metavar="COL",
-                       help="table column with lineage strings, for --rank")
+                       help="table column (BIOM: observation metadata field) with "
+                            "lineage strings, for --rank")
     group.add_argument("--rank", metavar="RANK",
-                       help="aggregate taxa to this rank (e.g. genus) using --lineage "
-                            "or --taxon-map")
+                       help="aggregate taxa to this rank (e.g. genus) using --lineage, "
+                            "a BIOM file's taxonomy or --taxon-map")
     group.add_argument("--taxon-map", metavar="FILE",
                        help="two-column file mapping taxon to group, to aggregate taxa")
 

@@ -90,9 +90,11 @@ def read_datasets(
     ----------
     counts:
         Wide (taxa as rows or columns) or long (sample, taxon, count) CSV/TSV table,
-        optionally gzip-compressed; read counts or relative abundances.
+        optionally gzip-compressed, or a BIOM file (JSON 1.0 or HDF5 2.1; needs the
+        ``biom`` extra); read counts or relative abundances.
     metadata:
-        Sample metadata table joined on sample id (needed for the ``*_by`` options).
+        Sample metadata table joined on sample id (needed for the ``*_by`` options,
+        unless a BIOM file carries sample metadata; given with one, this table wins).
     layout, orientation:
         Table layout and, for wide tables, which axis holds taxa (``"auto"`` detects).
     sample_id:
@@ -110,8 +112,9 @@ def read_datasets(
         For relative samples summing below 1: pool the rest as taxon ``other``
         (``"auto"``, ``"pool"``) or ``"renormalise"``.
     lineage, rank, taxon_map:
-        Aggregate taxa to ``rank`` using a lineage column, or to the groups of a
-        two-column taxon map file (whose groups are lineages when ``rank`` is given).
+        Aggregate taxa to ``rank`` using a lineage column (of a BIOM file: an observation
+        metadata field, ``taxonomy`` if not named), or to the groups of a two-column
+        taxon map file (whose groups are lineages when ``rank`` is given).
     min_samples, min_taxa:
         Smallest acceptable dataset (taxa counted after dropping all-zero taxa).
 

@@ -7,6 +7,7 @@ and metadata file.
 
 from __future__ import annotations
 
+import gzip
 import hashlib
 import json
 import re
@@ -137,9 +138,15 @@ def test_biom_reads_to_the_datasets_of_tsv_and_metadata(tmp_path, version, optio
         assert [d.notes for d in found] == [d.notes for d in expected]
 
 
-@pytest.mark.parametrize("version,name", [("json", "table.json"), ("hdf5", "table.h5")])
-def test_biom_is_recognised_by_content_whatever_the_name(tmp_path, version, name):
-    path = WRITERS[version](reference_table(), tmp_path / name)
+def write_gzipped_json(table, path: Path) -> Path:
+    path.write_bytes(gzip.compress(table.to_json("driftscreen tests").encode()))
+    return path
+
+
+@pytest.mark.parametrize("writer,name", [(write_json, "table.json"), (write_hdf5, "table.h5"),
+                                         (write_gzipped_json, "table.biom.gz")])
+def test_biom_is_recognised_by_content_whatever_the_name(tmp_path, writer, name):
+    path = writer(reference_table(), tmp_path / name)
     [dataset] = read_datasets(path)
     assert dataset.name == "table"
     np.testing.assert_array_equal(dataset.counts, COUNTS)
@@ -172,6 +179,17 @@ def test_named_lineage_field_and_missing_taxonomy(tmp_path):
     with pytest.raises(InputError, match=r"no observation metadata field 'lineage' \(option "
                                          r"--lineage\); use one of the fields 'taxonomy'"):
         read_datasets(path, lineage="lineage", rank="genus")
+
+
+def test_taxon_map_groups_biom_taxa_as_it_groups_tsv_taxa(tmp_path):
+    path = write_json(reference_table(), tmp_path / "counts.biom")
+    taxon_map = tmp_path / "groups.tsv"
+    taxon_map.write_text("taxon\tgroup\n" + "".join(
+        f"{taxon}\t{'early' if k < 3 else 'late'}\n" for k, taxon in enumerate(TAXA)))
+    found = read_datasets(path, taxon_map=taxon_map)
+    expected = text_datasets(tmp_path / "text", taxon_map=taxon_map)
+    assert_same_datasets(found, expected)
+    assert found[0].taxa == ("early", "late")
 
 
 def test_metadata_file_wins_over_the_metadata_inside_with_a_note(tmp_path):

@@ -23,6 +23,7 @@ import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -31,6 +32,9 @@ from driftscreen.errors import InputError
 from driftscreen.intake.counts import LINEAGE_NAMES, CountTable, normalised_name
 from driftscreen.intake.metadata import Metadata
 from driftscreen.intake.tables import TextTable, file_label, quoted_list, read_bytes
+
+if TYPE_CHECKING:
+    from biom import Table as ReferenceTable
 
 HDF5_MAGIC = b"\x89HDF\r\n\x1a\n"
 FORMAT_FIX = "give a BIOM 1.0 (JSON) or 2.1 (HDF5) file"
@@ -85,7 +89,7 @@ class BiomInput:
     counts:
         The counts table (taxa as rows), lineages filled in if a lineage field is used.
     samples:
-        Its sample metadata, or ``None`` if it has none.
+        Its sample metadata, or ``None`` if it has none or a metadata file wins.
     lineage:
         The observation metadata field used for ``--rank`` (``None`` if not needed).
     """
@@ -93,15 +97,6 @@ class BiomInput:
     counts: BiomCounts
     samples: BiomSampleMetadata | None
     lineage: str | None
-
-    def metadata_in_use(self, given: Metadata | None) -> Metadata | None:
-        """A separate metadata file wins over the one inside; a note says so."""
-        if given is None:
-            return self.samples
-        if self.samples is not None:
-            self.counts.notes.append(f"the sample metadata inside {self.counts.label} was not "
-                                     f"used: {given.label} was given and wins")
-        return given
 
 
 def is_biom(path: str | os.PathLike) -> bool:
@@ -129,14 +124,22 @@ def file_head(path: str | os.PathLike, size: int = 64) -> bytes:
 
 
 def read_biom(path: str | os.PathLike, *, layout: str, orientation: str, sample_id: str | None,
-              metadata_given: bool, lineage: str | None, rank: str | None,
+              metadata: str | os.PathLike | None, lineage: str | None, rank: str | None,
               taxon_map: object) -> BiomInput:
-    """Read a BIOM file and check the options that concern it."""
+    """Read a BIOM file and check the options that concern it.
+
+    A separate ``metadata`` file wins over the sample metadata inside (``samples`` is
+    then ``None``), with a note.
+    """
     label = file_label(path)
-    check_text_options(label, layout, orientation, sample_id, metadata_given)
+    check_text_options(label, layout, orientation, sample_id, metadata is not None)
     table = load_reference_table(label, read_bytes(path, label))
     counts = count_table(label, table)
     samples = sample_metadata(label, counts.samples, table.metadata(axis="sample"))
+    if samples is not None and metadata is not None:
+        counts.notes.append(f"the sample metadata inside {label} was not used: "
+                            f"{file_label(metadata)} was given and wins")
+        samples = None
     observations = table.metadata(axis="observation")
     key = lineage_field(label, observations, lineage, rank is not None and taxon_map is None)
     if key is not None:
@@ -157,7 +160,7 @@ def check_text_options(label: str, layout: str, orientation: str, sample_id: str
                          fix="drop it, or give --metadata FILE")
 
 
-def load_reference_table(label: str, raw: bytes):  # -> biom.Table
+def load_reference_table(label: str, raw: bytes) -> ReferenceTable:
     """Parse the bytes with the reference package (HDF5 2.1 or JSON 1.0)."""
     try:
         from biom import Table
@@ -180,7 +183,8 @@ def load_reference_table(label: str, raw: bytes):  # -> biom.Table
                          fix=FORMAT_FIX) from None
 
 
-def table_from_hdf5(label: str, raw: bytes, table_class: type):
+def table_from_hdf5(label: str, raw: bytes, table_class: type[ReferenceTable]
+                    ) -> ReferenceTable:
     """A BIOM 2.1 table from HDF5 bytes; a damaged file is an input error."""
     try:
         import h5py
@@ -258,7 +262,7 @@ def describe(error: Exception) -> str:
     return f"{type(error).__name__}: {text}" if text else type(error).__name__
 
 
-def count_table(label: str, table) -> BiomCounts:
+def count_table(label: str, table: ReferenceTable) -> BiomCounts:
     """The observation x sample matrix as a ``(samples, taxa)`` count table."""
     taxa = tuple(str(t) for t in table.ids(axis="observation"))
     samples = tuple(str(s) for s in table.ids(axis="sample"))

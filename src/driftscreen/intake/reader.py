@@ -133,14 +133,14 @@ def read_datasets(
     inside = None
     if is_biom(counts):
         inside = read_biom(counts, layout=layout, orientation=orientation, sample_id=sample_id,
-                           metadata_given=metadata is not None, lineage=lineage, rank=rank,
-                           taxon_map=taxon_map)
+                           metadata=metadata, lineage=lineage, rank=rank, taxon_map=taxon_map)
         lineage = inside.lineage
-    check_options(metadata if inside is None else metadata or inside.samples, sample_id,
-                  dataset_by, time_by, depth_by, depth, lineage, rank, taxon_map)
+    own_metadata = None if inside is None else inside.samples
+    check_options(metadata if own_metadata is None else own_metadata, sample_id, dataset_by,
+                  time_by, depth_by, depth, lineage, rank, taxon_map)
     parsed_rank = None if rank is None else parse_rank(rank)
     meta = None if metadata is None else read_metadata(file_label(metadata), sample_id)
-    meta = meta if inside is None else inside.metadata_in_use(meta)
+    meta = meta if own_metadata is None else own_metadata
     columns = metadata_columns(meta, dataset_by, time_by, depth_by)
     raw = (read_count_table(counts, layout, orientation, lineage, meta) if inside is None
            else inside.counts)

@@ -442,6 +442,9 @@ BAD = [
      r"t\.biom: observation 'ASV_a', sample 'R1_d0': non-integer count 2\.5; round the counts"),
     ("negative", lambda p: json_with(p, lambda d: d["data"][1].__setitem__(2, -3)), {},
      r"t\.biom: observation 'ASV_a', sample '\w+': negative count -3; counts must be >= 0"),
+    ("not-a-number", lambda p: json_with(p, lambda d: d["data"][1].__setitem__(2, np.nan)),
+     {}, r"t\.biom: observation 'ASV_a', sample '\w+': value nan is not a number; write every "
+         r"count as a finite number"),
     ("missing-field", lambda p: write_json(reference_table(), p), {"time_by": "date"},
      r"t\.biom: no sample metadata field 'date' \(option --time-by\); use one of the fields "
      r"'reactor', 'day', 'reads', or give --metadata FILE"),

@@ -194,7 +194,8 @@ def check_sums(table: CountTable, kind: str, share: np.ndarray) -> None:
 
 def check_converted(table: CountTable, counts: np.ndarray, other: np.ndarray | None,
                     depths: Depths) -> None:
-    """A sample whose abundances all round to zero reads has no data."""
+    """A sample whose abundances all round to zero reads has no data; one whose rounded
+    reads (abundances may sum to a little over 1) exceed :data:`MAX_READS` is too large."""
     totals = counts.sum(axis=1) + (0 if other is None else other)
     empty = np.flatnonzero(totals == 0)
     if empty.size:
@@ -203,6 +204,13 @@ def check_converted(table: CountTable, counts: np.ndarray, other: np.ndarray | N
                          f"depth {depths.values[sample]:g}", file=table.label,
                          place=table.sample_place(sample),
                          fix="give the sample's real depth, or remove the sample")
+    over = np.flatnonzero(totals > MAX_READS)
+    if over.size:
+        sample = int(over[0])
+        raise InputError(f"sample '{table.samples[sample]}' holds {totals[sample]:,} reads after "
+                         f"conversion at depth {depths.values[sample]:g}, more than "
+                         f"{MAX_READS_TEXT}", file=table.label, place=table.sample_place(sample),
+                         fix="give the sample's real depth")
 
 
 def depth_phrase(depths: Depths) -> str:

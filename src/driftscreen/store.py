@@ -13,7 +13,9 @@ configured statistics (the commands add the options of their follow-ups: ``detec
 when on, ``influence`` when off). A run with the same fingerprint reuses every finished
 record; a run with another fingerprint is refused, naming what differs. A record holds the
 dataset's result with its follow-ups (e.g. its most influential sample), so a resumed run
-does not redo them.
+does not redo them. A settings file or record that cannot be read, or is of another
+layout, means the folder holds no store of this version: it is refused in one line (a new
+``--out``, or remove the store folder), never overwritten and never mixed with a new run.
 """
 
 from __future__ import annotations

@@ -44,7 +44,8 @@ NAMES = [("Bacillus", "utf-8"), ("Bacillus\u2026", "cp1252"), ("B\u00e4cillus", 
          ("Bacillus\u2028sp", "utf-8"), ("Bacillus\u2026", "utf-8")]
 TIMES = ["days", "dates", "mistyped-year", "far-day", "repeated-day", "none"]
 OPTIONS = {"--seed": (["0", "7"], ["-1", "x"]), "--groupings": (["2"], ["1", "0"]),
-           "--replicates": (["19"], ["0", "-4"]), "--jobs": (["1"], ["0"])}
+           "--replicates": (["19"], ["0", "-4"]), "--jobs": (["1"], ["0"]),
+           "--read-noise": (["off", "estimate", "50"], ["1e-300", "0", "-1", "inf"])}
 TEST_OUTPUTS = ["none", "new-file", "new-folder-file", "folder", "under-file", "counts",
                 "link-to-counts", "pipe"]
 SCREEN_OUTS = ["new", "empty-folder", "file", "link-to-file", "under-file", "pipe",

@@ -469,6 +469,22 @@ CLI_CASES = [
     CliCase("simulate-depth-above-bound", r"argument --depth: must be a whole number from 1 to "
                                           r"10\^15, got 10000000000000000000",
             ["simulate", "--out", "{tmp}/sim", "--depth", "10000000000000000000"]),
+    CliCase("read-precision-too-small", r"argument --read-noise: a read precision must be a "
+                                        r"number >= 1e-06, got 1e-300",
+            TEST + ["--read-noise", "1e-300"]),
+    CliCase("simulate-interval-too-small", r"argument --interval: must be a number from 1e-06 "
+                                           r"to 73050, got 1e-300",
+            ["simulate", "--out", "{tmp}/sim", "--interval", "1e-300"]),
+    CliCase("simulate-theta-too-large", r"argument --theta: must be a number from 1e-06 to "
+                                        r"1e\+12, got 1e300",
+            ["simulate", "--out", "{tmp}/sim", "--theta", "1e300"]),
+    CliCase("simulate-depth-spread-too-large", r"argument --depth-spread: must be a number from "
+                                               r"0 to 5, got 1000",
+            ["simulate", "--out", "{tmp}/sim", "--depth-spread", "1000"]),
+    CliCase("simulate-span-over-200-years", r"^driftscreen: error: option --interval: 100 "
+                                            r"samples every 1000 days span 271 years, more than "
+                                            r"a sampling campaign of 200 years; give fewer",
+            ["simulate", "--out", "{tmp}/sim", "--interval", "1000", "--samples", "100"]),
     # the size limits of the analysis
     CliCase("three-sample-series", r"^driftscreen: error: .*counts\.tsv, .*meta\.tsv: dataset "
                                    r"'counts': a time series needs at least 4 samples, this "

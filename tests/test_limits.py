@@ -11,7 +11,9 @@ from driftscreen.commands import power_design
 from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
 from driftscreen.limits import MAX_READS, NOT_ANALYSED, unanalysable_reason
+from driftscreen.neutral.model import NullOptions
 from driftscreen.screen import screen
+from driftscreen.synthetic import DesignSpec
 
 
 def small_dataset(n_samples: int, time_series: bool) -> Dataset:
@@ -74,3 +76,42 @@ def test_counts_a_cast_would_wrap_are_refused():
     with pytest.raises(ValueError, match="counts must be finite and at most"):
         Dataset(name="x", counts=np.array([[9.3e18, 1.0]]), taxa=("a", "b"), samples=("s",),
                 design=Design(depths=[5]))
+
+
+def simulate_parser_accepts(option: str, value: float) -> bool:
+    try:
+        build_parser().parse_args(["simulate", "--out", "x", option, repr(value)])
+    except SystemExit:
+        return False
+    return True
+
+
+NUMBERS = [-1.0, 0.0, 1e-300, 1e-7, 1e-6, 0.5, 5.0, 6.0, 1e5, 1e300, np.inf, np.nan]
+
+
+@pytest.mark.parametrize("value", NUMBERS)
+def test_design_options_accept_what_the_design_accepts(value, capsys):
+    for option, field in (("--interval", "interval"), ("--depth-spread", "depth_spread")):
+        try:
+            DesignSpec(n_samples=2, **{field: value})
+            library = True
+        except ValueError:
+            library = False
+        assert simulate_parser_accepts(option, value) == library, (option, value)
+    capsys.readouterr()
+
+
+@pytest.mark.parametrize("value", NUMBERS)
+def test_read_precision_option_accepts_what_the_calibration_accepts(value, capsys):
+    try:
+        CalibrationSettings(null=NullOptions(noise=value))
+        library = True
+    except ValueError:
+        library = False
+    try:
+        build_parser().parse_args(["test", "counts.tsv", "--read-noise", repr(value)])
+        parser = True
+    except SystemExit:
+        parser = False
+    assert parser == library
+    capsys.readouterr()

@@ -35,8 +35,8 @@ from joblib import Parallel, delayed
 
 from driftscreen import seeds
 from driftscreen.dataset import Dataset, Design
-from driftscreen.limits import (GROUPINGS, JOBS, REPLICATES, SEED, TOO_SMALL_FIX,
-                               check_analysable)
+from driftscreen.limits import (GROUPINGS, JOBS, READ_PRECISION, REPLICATES, SEED,
+                               TOO_SMALL_FIX, check_analysable)
 from driftscreen.neutral.fit import (
     CONDITIONED_MIN_SPAN,
     NOISE_GRID,
@@ -99,6 +99,8 @@ class CalibrationSettings:
         REPLICATES.check("replicates", self.replicates)
         GROUPINGS.check("groupings", self.groupings)
         SEED.check("seed", self.seed)
+        if not isinstance(self.null.noise, str):
+            READ_PRECISION.check("a fixed read precision", self.null.noise)
 
 
 @dataclass(frozen=True)

@@ -15,8 +15,9 @@ from pathlib import Path
 
 from driftscreen import __version__
 from driftscreen.errors import InputError
-from driftscreen.limits import (GROUPINGS, JOBS, MAX_READS, MAX_READS_TEXT, READS, REPLICATES,
-                               SEED, IntegerRange)
+from driftscreen.limits import (DEPTH_SPREAD, GROUPINGS, INTERVAL, JOBS, MAX_READS,
+                               MAX_READS_TEXT, READ_PRECISION, READS, REPLICATES, SEED, THETA,
+                               IntegerRange, NumberRange)
 from driftscreen.neutral.model import START_CHOICES, NullOptions
 
 EXIT_INPUT = 2
@@ -51,6 +52,19 @@ def whole_number(allowed: IntegerRange) -> Callable[[str], int]:
     return parse
 
 
+def number_in(allowed: NumberRange) -> Callable[[str], float]:
+    """An argument type accepting exactly the numbers of ``allowed``."""
+    def parse(text: str) -> float:
+        try:
+            value = float(text)
+        except ValueError:
+            value = math.nan
+        if value not in allowed:
+            raise argparse.ArgumentTypeError(f"must be {allowed.describe()}, got {text}")
+        return value
+    return parse
+
+
 def read_depth(text: str) -> float:
     """--depth: a number of reads per sample, above 0 and at most :data:`MAX_READS`."""
     try:
@@ -64,7 +78,7 @@ def read_depth(text: str) -> float:
 
 
 def read_noise(text: str) -> str | float:
-    """--read-noise: 'estimate', 'off' or a Dirichlet-multinomial precision C > 0."""
+    """--read-noise: 'estimate', 'off' or a Dirichlet-multinomial precision C."""
     if text in ("estimate", "off"):
         return text
     try:
@@ -72,8 +86,9 @@ def read_noise(text: str) -> str | float:
     except ValueError:
         raise argparse.ArgumentTypeError(
             f"must be 'estimate', 'off' or a read precision C > 0, got {text}") from None
-    if not (math.isfinite(value) and value > 0):
-        raise argparse.ArgumentTypeError(f"a read precision must be positive, got {text}")
+    if value not in READ_PRECISION:
+        raise argparse.ArgumentTypeError(
+            f"a read precision must be {READ_PRECISION.describe()}, got {text}")
     return value
 
 
@@ -213,7 +228,7 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--taxa", type=at_least_two, default=40, help="number of taxa (default 40)")
     p.add_argument("--samples", type=at_least_two, default=100,
                    help="samples per dataset (default 100)")
-    p.add_argument("--interval", type=positive_float, default=1.0,
+    p.add_argument("--interval", type=number_in(INTERVAL), default=1.0,
                    help="mean days between samples (default 1)")
     p.add_argument("--irregular", action="store_true",
                    help="irregular sampling: gamma-distributed gaps with that mean")
@@ -221,9 +236,9 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
                    help="independent replicate communities, no time axis")
     p.add_argument("--depth", type=whole_number(READS), default=10_000,
                    help="median reads per sample (default 10000)")
-    p.add_argument("--depth-spread", type=nonnegative_float, default=0.0,
+    p.add_argument("--depth-spread", type=number_in(DEPTH_SPREAD), default=0.0,
                    help="standard deviation of log depth across samples (default 0)")
-    p.add_argument("--theta", type=positive_float, default=50.0,
+    p.add_argument("--theta", type=number_in(THETA), default=50.0,
                    help="immigration parameter theta (default 50)")
     p.add_argument("--rate", type=positive_float, default=0.2,
                    help="relaxation rate per day: correlations decay as exp(-rate*lag) "
@@ -377,13 +392,13 @@ def add_power(sub: argparse._SubParsersAction) -> None:
     group.add_argument("--taxa", metavar="K", type=positive_int, help="number of taxa")
     group.add_argument("--samples", metavar="T", type=positive_int,
                        help="samples per dataset (time points, or replicate communities)")
-    group.add_argument("--interval", metavar="D", type=positive_float,
+    group.add_argument("--interval", metavar="D", type=number_in(INTERVAL),
                        help="days between samples (the mean, with --irregular)")
     group.add_argument("--irregular", action="store_true",
                        help="gamma-distributed gaps with mean --interval")
     group.add_argument("--snapshot", action="store_true",
                        help="replicate communities observed once, no time axis")
-    group.add_argument("--depth-spread", metavar="S", type=nonnegative_float,
+    group.add_argument("--depth-spread", metavar="S", type=number_in(DEPTH_SPREAD),
                        help="standard deviation of log depth across samples (default 0)")
     group = p.add_argument_group("alternative")
     group.add_argument("--alternative", choices=["logistic", "lotka-volterra"],

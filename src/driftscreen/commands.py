@@ -13,6 +13,7 @@ from typing import TYPE_CHECKING, Any, TextIO
 from driftscreen import seeds
 from driftscreen.dataset import Dataset
 from driftscreen.errors import InputError
+from driftscreen.limits import MAX_SPAN_DAYS, MAX_SPAN_YEARS, THETA
 from driftscreen.files import (atomic_write_text, check_output_file, check_output_folder,
                                same_place)
 from driftscreen.neutral.model import NeutralModel, NullOptions
@@ -109,6 +110,8 @@ def simulate_command(out: Path, *, n_taxa: int, n_samples: int, interval: float 
                      strength: float | None = None) -> tuple[Path, Path, Path]:
     """`driftscreen simulate`: write datasets that intake reads back, and their truth."""
     check_output_folder(out, "--out", writes=(COUNTS_FILE, METADATA_FILE, TRUTH_FILE))
+    THETA.check("theta", theta)
+    check_design_span(n_samples, interval)
     spec = DesignSpec(n_samples=n_samples, interval=interval, irregular=irregular,
                       depth=depth, depth_spread=depth_spread)
     width = len(str(n_datasets))
@@ -121,6 +124,16 @@ def simulate_command(out: Path, *, n_taxa: int, n_samples: int, interval: float 
     text = "\t".join(columns) + "\n" + "".join(
         "\t".join(row[c] for c in columns) + "\n" for row in rows)
     return counts_path, metadata_path, atomic_write_text(out / TRUTH_FILE, text)
+
+
+def check_design_span(n_samples: int, interval: float | None) -> None:
+    """A synthetic time series spans at most :data:`driftscreen.limits.MAX_SPAN_DAYS`, the
+    longest span intake accepts."""
+    if interval is not None and interval * (n_samples - 1) > MAX_SPAN_DAYS:
+        raise InputError(f"{n_samples} samples every {interval:g} days span "
+                         f"{interval * (n_samples - 1) / 365.25:.0f} years, more than a "
+                         f"sampling campaign of {MAX_SPAN_YEARS} years",
+                         file="option --interval", fix="give fewer samples or a shorter interval")
 
 
 def choose_dataset(datasets: Sequence[Dataset], name: str | None, source: str) -> Dataset:
@@ -422,6 +435,7 @@ def power_design(dataset: Dataset | None, *, n_taxa: int | None, n_samples: int 
     if n_taxa < MIN_TAXA:
         raise InputError(f"{n_taxa} taxa are too few to analyse", file="option --taxa",
                          fix=f"give at least {MIN_TAXA}")
+    check_design_span(n_samples, None if snapshot else interval)
     return PowerDesign.from_numbers(n_taxa=n_taxa, n_samples=n_samples,
                                     interval=None if snapshot else interval,
                                     irregular=irregular, depth=max(int(round(depth)), 1),

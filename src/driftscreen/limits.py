@@ -6,12 +6,15 @@
   no sequencing run comes near it, and every count below it is exact in float64 and
   int64, so no cast can wrap.
 * The longest span of sampling times (:data:`MAX_SPAN_DAYS`).
-* The ranges of the calibration options (:class:`IntegerRange`), checked by
-  :class:`driftscreen.calibrate.CalibrationSettings` and used by the argument parser.
+* The ranges of the options (:class:`IntegerRange`, :class:`NumberRange`), checked by the
+  library (:class:`driftscreen.calibrate.CalibrationSettings`,
+  :class:`driftscreen.synthetic.DesignSpec`, the simulate command) and used by the argument
+  parser.
 """
 
 from __future__ import annotations
 
+import math
 import operator
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
@@ -99,8 +102,41 @@ class IntegerRange:
             raise ValueError(f"{name} must be {self.describe()}, got {value!r}")
 
 
+@dataclass(frozen=True)
+class NumberRange:
+    """The finite numbers an option accepts: ``minimum <= value <= maximum``."""
+
+    minimum: float
+    maximum: float = math.inf
+
+    def __contains__(self, value: object) -> bool:
+        try:
+            number = float(value)  # type: ignore[arg-type]
+        except (TypeError, ValueError):
+            return False
+        return math.isfinite(number) and self.minimum <= number <= self.maximum
+
+    def describe(self) -> str:
+        """``"a number >= 1e-06"`` or ``"a number from 0 to 5"``."""
+        if math.isinf(self.maximum):
+            return f"a number >= {self.minimum:g}"
+        return f"a number from {self.minimum:g} to {self.maximum:g}"
+
+    def check(self, name: str, value: object) -> None:
+        """Raise ValueError (a programming error) if ``value`` is outside the range."""
+        if value not in self:
+            raise ValueError(f"{name} must be {self.describe()}, got {value!r}")
+
+
 REPLICATES = IntegerRange(1)
 GROUPINGS = IntegerRange(2)
 SEED = IntegerRange(0)
 JOBS = IntegerRange(1)
 READS = IntegerRange(1, MAX_READS)
+#: A fixed Dirichlet-multinomial read precision C (below, the draws underflow).
+READ_PRECISION = NumberRange(1e-6)
+#: Synthetic designs (simulate, power): days between samples (times are kept to 6
+#: decimals), standard deviation of log depth, and the immigration parameter theta.
+INTERVAL = NumberRange(1e-6, MAX_SPAN_DAYS)
+DEPTH_SPREAD = NumberRange(0.0, 5.0)
+THETA = NumberRange(1e-6, 1e12)

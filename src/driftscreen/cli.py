@@ -43,10 +43,10 @@ def whole_number(allowed: IntegerRange) -> Callable[[str], int]:
     """An argument type accepting exactly the whole numbers of ``allowed``."""
     def parse(text: str) -> int:
         try:
-            value = int(text)
+            value: int | None = int(text)
         except ValueError:
-            raise argparse.ArgumentTypeError(f"must be {allowed.describe()}, got {text}") from None
-        if value not in allowed:
+            value = None
+        if value is None or value not in allowed:
             raise argparse.ArgumentTypeError(f"must be {allowed.describe()}, got {text}")
         return value
     return parse

@@ -13,9 +13,10 @@ from typing import TYPE_CHECKING, Any, TextIO
 from driftscreen import seeds
 from driftscreen.dataset import Dataset
 from driftscreen.errors import InputError
-from driftscreen.limits import MAX_SPAN_DAYS, MAX_SPAN_YEARS, THETA
 from driftscreen.files import (atomic_write_text, check_output_file, check_output_folder,
                                same_place)
+from driftscreen.limits import (MAX_SPAN_DAYS, MAX_SPAN_YEARS, MIN_TAXA, THETA, check_analysable,
+                               minimum_samples)
 from driftscreen.neutral.model import NeutralModel, NullOptions
 from driftscreen.neutral.simulate import simulate
 from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
@@ -401,7 +402,6 @@ def power_design(dataset: Dataset | None, *, n_taxa: int | None, n_samples: int 
         a design too small to analyse.
     """
     from driftscreen.power import PowerDesign
-    from driftscreen.limits import MIN_TAXA, check_analysable, minimum_samples
 
     given = {"--taxa": n_taxa, "--samples": n_samples, "--interval": interval,
              "--irregular": irregular or None, "--snapshot": snapshot or None,

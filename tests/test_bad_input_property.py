@@ -1,16 +1,19 @@
 """Property: whatever a new user's mistake, a command ends in exit 0 with the right numbers or
 exit 2 with one line on stderr, and no input file changes.
 
-Each example starts from a small valid table and metadata, applies mistakes a user makes
-(numbers beyond any sequencing run, digit separators, other scripts' digits, a mistyped
-year, a table saved as Windows-1252, too few samples, out-of-range options, output places
-that are files, folders, links, inputs or damaged resume stores) and runs `driftscreen test`
-or `driftscreen screen` in this process. The expected outcome comes from a model of the
-mutated table kept here (Python integers), independent of the code under test.
+Each example starts from a small valid table (wide with taxa as rows or columns, or long;
+counts, or fractions with a --depth; plain or gzipped) and metadata, applies mistakes a user
+makes (numbers beyond any sequencing run, digit separators, other scripts' digits, a
+mistyped year, a table saved as Windows-1252, a ragged line, too few samples, out-of-range
+options and depths, output places that are files, folders, pipes, links, inputs or damaged
+resume stores) and runs `driftscreen test` or `driftscreen screen` in this process. The
+expected outcome comes from a model of the mutated table kept here (Python integers; the
+documented conversion round(fraction x depth)), independent of the code under test.
 """
 
 from __future__ import annotations
 
+import gzip
 import hashlib
 import os
 import re
@@ -20,6 +23,7 @@ from pathlib import Path
 
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
+import numpy as np
 
 from cli_run import run_cli
 
@@ -43,6 +47,9 @@ INVALID_CELLS = ["1e300", "9223372036854775808", "9e18", "1000000000000001", "-3
 NAMES = [("Bacillus", "utf-8"), ("Bacillus\u2026", "cp1252"), ("B\u00e4cillus", "cp1252"),
          ("Bacillus\u2028sp", "utf-8"), ("Bacillus\u2026", "utf-8")]
 TIMES = ["days", "dates", "mistyped-year", "far-day", "repeated-day", "none"]
+LAYOUTS = ["taxa-rows", "taxa-columns", "long"]
+#: --depth of a table of fractions: valid ones, then invalid ones.
+DEPTHS = (["1000", "250", "3", "1e15"], ["2e18", "9.3e18", "1e300", "0", "-5", "many"])
 OPTIONS = {"--seed": (["0", "7"], ["-1", "x"]), "--groupings": (["2"], ["1", "0"]),
            "--replicates": (["19"], ["0", "-4"]), "--jobs": (["1"], ["0"]),
            "--read-noise": (["off", "estimate", "50"], ["1e-300", "0", "-1", "inf"])}
@@ -64,6 +71,9 @@ class Scenario:
     ragged: bool = False
     options: dict[str, str] = field(default_factory=dict)
     place: str = "none"
+    layout: str = "taxa-rows"
+    gzipped: bool = False
+    depth: str | None = None  # a table of fractions converted at this --depth
 
 
 def mostly(usual: object, others: list | st.SearchStrategy) -> st.SearchStrategy:
@@ -90,12 +100,15 @@ def option_strategy() -> st.SearchStrategy[dict[str, str]]:
 def scenarios(draw: st.DrawFn) -> Scenario:
     command = draw(st.sampled_from(["test", "screen"]))
     places = TEST_OUTPUTS if command == "test" else SCREEN_OUTS
-    return Scenario(command=command, cells=draw(cell_strategy()),
+    depth = draw(mostly(None, st.one_of(st.sampled_from(DEPTHS[0]), st.sampled_from(DEPTHS[1]))))
+    return Scenario(command=command, cells={} if depth else draw(cell_strategy()),
                     name=draw(st.sampled_from(NAMES)),
                     n_samples=draw(mostly(len(SAMPLES), list(range(2, len(SAMPLES))))),
                     times=draw(mostly("days", TIMES)), ragged=draw(mostly(False, [True])),
                     options=draw(option_strategy()),
-                    place=draw(mostly(places[0], places[1:])))
+                    place=draw(mostly(places[0], places[1:])),
+                    layout=draw(st.sampled_from(LAYOUTS)), gzipped=draw(st.booleans()),
+                    depth=depth)
 
 
 # ----------------------------------------------------------------------------- the model
@@ -106,10 +119,25 @@ def count_of(text: str) -> int | None:
     return int(text) if re.fullmatch("[0-9]+", text) else None
 
 
+def cell_texts(scenario: Scenario) -> list[list[str]]:
+    """The value cells as written, taxa x kept samples: counts, or fractions of each sample."""
+    kept = range(scenario.n_samples)
+    if scenario.depth is not None:
+        totals = [sum(row[j] for row in BASE) for j in kept]
+        return [[f"{row[j] / totals[j]:.6f}" for j in kept] for row in BASE]
+    return [[scenario.cells.get((i, j), str(row[j])) for j in kept] for i, row in enumerate(BASE)]
+
+
 def counts_of(scenario: Scenario) -> list[list[int]] | None:
-    """The counts the table holds (taxa x kept samples), or None if a cell is no count."""
-    table = [[count_of(scenario.cells.get((i, j), str(row[j])))
-              for j in range(scenario.n_samples)] for i, row in enumerate(BASE)]
+    """The counts the table holds (taxa x kept samples), or None if a cell is no count;
+    fractions become round(fraction x depth) reads (the documented conversion)."""
+    texts = cell_texts(scenario)
+    if scenario.depth is not None:
+        depth = float(scenario.depth) if scenario.depth in DEPTHS[0] else None
+        if depth is None:
+            return None
+        return [[int(np.rint(float(text) * depth)) for text in row] for row in texts]
+    table = [[count_of(text) for text in row] for row in texts]
     return None if any(value is None for row in table for value in row) else table
 
 
@@ -152,38 +180,62 @@ def too_small(scenario: Scenario, counts: list[list[int]]) -> bool:
 
 
 # ----------------------------------------------------------------------------- the files
+def table_lines(scenario: Scenario) -> list[list[str]]:
+    """The counts table's lines as fields, in the scenario's layout; a ragged table lacks
+    the last field of one data line."""
+    name = scenario.name[0]
+    taxa = [name if i == 1 else taxon for i, taxon in enumerate(TAXA)]
+    samples = SAMPLES[:scenario.n_samples]
+    texts = cell_texts(scenario)
+    if scenario.layout == "taxa-rows":
+        lines = [["taxon", *samples]] + [[taxon, *row] for taxon, row in zip(taxa, texts)]
+        broken = 3  # the line of taxon 2
+    elif scenario.layout == "taxa-columns":
+        lines = [["sample", *taxa]] + [[sample, *column]
+                                       for sample, column in zip(samples, zip(*texts))]
+        broken = 1  # the line of the first sample
+    else:
+        lines = [["sample", "taxon", "count"]] + [[sample, taxon, texts[i][j]]
+                                                  for i, taxon in enumerate(taxa)
+                                                  for j, sample in enumerate(samples)]
+        broken = 1 + 2 * scenario.n_samples  # the first line of taxon 2
+    if scenario.ragged:
+        lines[broken] = lines[broken][:-1]
+    return lines
+
+
 def write_inputs(folder: Path, scenario: Scenario) -> list[str]:
     """Write counts (and metadata) into ``folder``; the command-line arguments for them."""
-    name, encoding = scenario.name
-    taxa = [name if i == 1 else taxon for i, taxon in enumerate(TAXA)]
-    header = "taxon\t" + "\t".join(SAMPLES[:scenario.n_samples]) + "\n"
-    rows = []
-    for i, row in enumerate(BASE):
-        cells = [scenario.cells.get((i, j), str(row[j])) for j in range(scenario.n_samples)]
-        if scenario.ragged and i == 2:
-            cells = cells[:-1]
-        rows.append(taxa[i] + "\t" + "\t".join(cells) + "\n")
-    counts = folder / ("results.tsv" if scenario.place == "holds-input" else "counts.tsv")
-    counts.write_bytes((header + "".join(rows)).encode(encoding, errors="replace"))
+    text = "".join("\t".join(fields) + "\n" for fields in table_lines(scenario))
+    data = text.encode(scenario.name[1], errors="replace")
+    if scenario.place == "holds-input":  # a counts table named like a screen's output
+        counts = folder / "results.tsv"
+    elif scenario.gzipped:
+        counts, data = folder / "counts.tsv.gz", gzip.compress(data, mtime=0)
+    else:
+        counts = folder / "counts.tsv"
+    counts.write_bytes(data)
+    depth = [] if scenario.depth is None else ["--depth", scenario.depth]
     times = time_texts(scenario)
     if times is None:
-        return [str(counts)]
+        return [str(counts), *depth]
     metadata = "sample\ttime\n" + "".join(f"{s}\t{t}\n" for s, t in zip(SAMPLES, times))
     (folder / "metadata.tsv").write_text(metadata, encoding="utf-8")
-    return [str(counts), "--metadata", str(folder / "metadata.tsv"), "--time-by", "time"]
+    return [str(counts), "--metadata", str(folder / "metadata.tsv"), "--time-by", "time",
+            *depth]
 
 
-def output_arguments(root: Path, inputs: Path, scenario: Scenario) -> list[str]:
+def output_arguments(root: Path, counts: Path, scenario: Scenario) -> list[str]:
     """Make the output place of the scenario; its command-line arguments."""
     (root / "a-file").write_text("keep me\n", encoding="utf-8")
     place = scenario.place
     if scenario.command == "test":
         paths = {"new-file": root / "report.txt", "new-folder-file": root / "new" / "r.txt",
                  "folder": root, "under-file": root / "a-file" / "r.txt",
-                 "counts": inputs / "counts.tsv", "link-to-counts": root / "link.txt",
+                 "counts": counts, "link-to-counts": root / "link.txt",
                  "pipe": root / "pipe"}
         if place == "link-to-counts":
-            paths[place].symlink_to(inputs / "counts.tsv")
+            paths[place].symlink_to(counts)
         elif place == "pipe":  # a special file, like /dev/null (never written by a test)
             os.mkfifo(paths[place])
         return [] if place == "none" else ["--output", str(paths[place])]
@@ -206,7 +258,7 @@ def output_arguments(root: Path, inputs: Path, scenario: Scenario) -> list[str]:
     elif place == "store-settings-folder":
         (out / ".driftscreen" / "settings.json").mkdir(parents=True)
     elif place == "holds-input":  # the counts table is inputs/results.tsv
-        out = inputs
+        out = counts.parent
     return ["--out", str(out)]
 
 
@@ -238,7 +290,7 @@ def check_screen_outputs(out: Path, counts: list[list[int]], scenario: Scenario)
     assert first["note"].startswith("not analysed") == too_small(scenario, counts)
 
 
-@settings(derandomize=True, max_examples=300, deadline=None,
+@settings(derandomize=True, max_examples=400, deadline=None,
           suppress_health_check=[HealthCheck.too_slow])
 @given(scenarios())
 def test_every_run_ends_in_a_result_or_one_line(scenario):
@@ -246,15 +298,17 @@ def test_every_run_ends_in_a_result_or_one_line(scenario):
         root = Path(temporary)
         inputs = root / "inputs"
         inputs.mkdir()
-        arguments = [scenario.command, *write_inputs(inputs, scenario)]
-        arguments += output_arguments(root, inputs, scenario)
+        input_arguments = write_inputs(inputs, scenario)
+        arguments = [scenario.command, *input_arguments]
+        arguments += output_arguments(root, Path(input_arguments[0]), scenario)
         options = {"--replicates": "19", "--groupings": "2", **scenario.options}
         arguments += [item for pair in options.items() for item in pair]
         arguments += ["--no-influence"] + (["--quiet"] if scenario.command == "screen" else [])
         before = digests(inputs)
 
         status, stdout, stderr = run_cli(arguments)
-        event(f"{scenario.command}: exit {status}")
+        event(f"{scenario.command}, {scenario.layout}"
+              f"{', fractions' if scenario.depth else ''}: exit {status}")
 
         assert digests(inputs) == before  # no input changed
         assert "Traceback" not in stderr

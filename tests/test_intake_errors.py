@@ -435,6 +435,9 @@ CLI_CASES = [
             TEST + ["--output", "{tmp}/link"], links={"link": "{in}/counts.tsv"}),
     CliCase("output-is-a-pipe", r"pipe: option --output: is not a regular file",
             TEST + ["--output", "{tmp}/pipe"], make={"pipe": "|"}),
+    CliCase("figures-in-the-output", r"r\.txt: option --figures: is also given as --output; "
+                                     r"give --figures a place of its own$",
+            TEST + ["--output", "{tmp}/r.txt", "--figures", "{tmp}/r.txt"]),
     CliCase("table-is-the-output", r"r\.txt: option --table: is also given as --output",
             ["power", "--taxa", "5", "--samples", "10", "--interval", "1", "--depth", "100",
              "--output", "{tmp}/r.txt", "--table", "{tmp}/r.txt"]),

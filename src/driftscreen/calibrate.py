@@ -36,7 +36,7 @@ from joblib import Parallel, delayed
 from driftscreen import seeds
 from driftscreen.dataset import Dataset, Design
 from driftscreen.limits import (GROUPINGS, JOBS, READ_PRECISION, REPLICATES, SEED,
-                               TOO_SMALL_FIX, check_analysable)
+                               check_analysable)
 from driftscreen.neutral.fit import (
     CONDITIONED_MIN_SPAN,
     NOISE_GRID,
@@ -583,7 +583,7 @@ def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int =
     InputError
         A design too small to analyse (:func:`driftscreen.limits.unanalysable_reason`).
     """
-    check_analysable(dataset, fix=TOO_SMALL_FIX)
+    check_analysable(dataset)
     JOBS.check("jobs", jobs)
     settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed,
                                    null=NullOptions(noise=noise, start=start))

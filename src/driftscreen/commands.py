@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import inspect
+import os
 import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import replace
@@ -181,6 +182,7 @@ def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int
     if figures is not None:
         check_output_folder(figures, "--figures", dataset.source)
         require_matplotlib()
+    check_distinct_outputs({"--output": output, "--figures": figures})
     settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed,
                                    null=null)
     result = neutrality_test(dataset, replicates=replicates, groupings=groupings, seed=seed,
@@ -448,9 +450,18 @@ def check_power_outputs(output: str | None, table: str | None, inputs: Sequence[
         check_output_file(output, "--output", inputs)
     if table:
         check_output_file(table, "--table", inputs)
-    if output and table and same_place(output, table):
-        raise InputError("is also given as --output", file=table, place="option --table",
-                         fix="give the table another file name")
+    check_distinct_outputs({"--output": output, "--table": table})
+
+
+def check_distinct_outputs(places: Mapping[str, str | os.PathLike | None]) -> None:
+    """No two output places of one command (by option) are the same place."""
+    given = [(option, path) for option, path in places.items() if path]
+    for index, (option, path) in enumerate(given):
+        for earlier, other in given[:index]:
+            if same_place(path, other):
+                raise InputError(f"is also given as {earlier}", file=str(path),
+                                 place=f"option {option}",
+                                 fix=f"give {option} a place of its own")
 
 
 def power_command(design: PowerDesign, *, alternative: str = "logistic",

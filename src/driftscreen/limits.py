@@ -39,8 +39,9 @@ MAX_SPAN_YEARS = 200
 MAX_SPAN_DAYS = MAX_SPAN_YEARS * 365.25
 #: Prefix of the note of a dataset a screen cannot analyse.
 NOT_ANALYSED = "not analysed: "
-#: What to do about a dataset too small to test.
-TOO_SMALL_FIX = "add samples, or define larger datasets (fewer --dataset-by columns)"
+#: What to do about a dataset with too few samples, or too few taxa with reads.
+FEW_SAMPLES_FIX = "add samples, or define larger datasets (fewer --dataset-by columns)"
+FEW_TAXA_FIX = "check the table (and any --depth), or leave this dataset out"
 
 
 def minimum_samples(time_series: bool) -> int:
@@ -65,12 +66,15 @@ def unanalysable_reason(dataset: Dataset) -> str:
     return ""
 
 
-def check_analysable(dataset: Dataset, fix: str) -> None:
-    """Raise the one-line :class:`InputError` of :func:`unanalysable_reason`, if any."""
+def check_analysable(dataset: Dataset, fix: str | None = None) -> None:
+    """Raise the one-line :class:`InputError` of :func:`unanalysable_reason`, if any, with
+    ``fix`` (default: more samples, or a look at the taxa, as the reason asks)."""
     reason = unanalysable_reason(dataset)
     if reason:
+        few_samples = dataset.n_samples < minimum_samples(dataset.is_time_series)
         raise InputError(reason.removeprefix(NOT_ANALYSED), file=", ".join(dataset.source) or None,
-                         place=f"dataset '{dataset.name}'", fix=fix)
+                         place=f"dataset '{dataset.name}'",
+                         fix=fix or (FEW_SAMPLES_FIX if few_samples else FEW_TAXA_FIX))
 
 
 @dataclass(frozen=True)

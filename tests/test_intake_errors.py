@@ -1,4 +1,8 @@
-"""Bad input gives one-line InputErrors naming file, place and fix; inputs stay untouched."""
+"""Bad input gives one-line InputErrors naming file, place and fix; inputs stay untouched.
+
+The second table holds the same mistakes made on the command line (with bad options and
+output places), run in this process: each ends in one line on stderr and exit status 2.
+"""
 
 from __future__ import annotations
 

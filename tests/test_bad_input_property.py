@@ -290,7 +290,7 @@ def check_screen_outputs(out: Path, counts: list[list[int]], scenario: Scenario)
     assert first["note"].startswith("not analysed") == too_small(scenario, counts)
 
 
-@settings(derandomize=True, max_examples=400, deadline=None,
+@settings(derandomize=True, database=None, max_examples=400, deadline=None,
           suppress_health_check=[HealthCheck.too_slow])
 @given(scenarios())
 def test_every_run_ends_in_a_result_or_one_line(scenario):

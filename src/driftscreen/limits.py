@@ -29,8 +29,10 @@ if TYPE_CHECKING:
 MIN_SAMPLES_TIME_SERIES = 4
 MIN_SAMPLES_SNAPSHOT = 3
 MIN_TAXA = 2
-#: Largest read count of one cell, of one sample's total and of a stated depth (10^15,
-#: far above any sequencing run; below 2^53, so exact in float64).
+#: Largest read count of one cell, of one sample's total and of a stated depth: 10^15, far
+#: above any sequencing run (the largest give of the order of 10^10 reads; from memory) and
+#: below 2^53, so every count up to it is exact in float64 (IEEE 754 binary64 has a 53-bit
+#: significand) and in int64.
 MAX_READS = 10**15
 #: How messages write it.
 MAX_READS_TEXT = "10^15"

@@ -21,9 +21,9 @@ import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
-import numpy as np
 
 from cli_run import run_cli
 

@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import pytest
+
 from cli_run import run_cli
 
 from driftscreen.errors import InputError

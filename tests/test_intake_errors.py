@@ -421,6 +421,9 @@ CLI_CASES = [
             SCREEN + ["--out", "{tmp}/pipe"], make={"pipe": "|"}),
     CliCase("out-is-link-to-file", r"link: option --out: is a file, not a folder",
             SCREEN + ["--out", "{tmp}/link"], links={"link": "a-file"}),
+    CliCase("out-is-a-broken-link", r"broken: option --out: is a link to nothing; remove the "
+                                    r"link, or give another folder$",
+            SCREEN + ["--out", "{tmp}/broken"], links={"broken": "nowhere"}),
     CliCase("out-under-a-file", r"a-file/out: option --out: is under the file .*a-file, not in "
                                 r"a folder; give a path in a folder$",
             SCREEN + ["--out", "{tmp}/a-file/out"]),

@@ -112,11 +112,15 @@ def check_output_folder(path: str | os.PathLike, option: str,
     Raises
     ------
     InputError
-        A file (or a link to one, or ``/dev/null``) rather than a folder, a path under a
-        file, a folder that cannot be written, or a written file that is an input.
+        A file (or a link to one, or ``/dev/null``) rather than a folder, a broken link, a
+        path under a file, a folder that cannot be written, or a written file that is an
+        input.
     """
     path = Path(path)
     place = f"option {option}"
+    if path.is_symlink() and not path.exists():
+        raise InputError("is a link to nothing", file=str(path), place=place,
+                         fix="remove the link, or give another folder")
     if path.exists() and not path.is_dir():
         raise InputError("is a file, not a folder", file=str(path), place=place,
                          fix="give a folder (it is created if needed)")

@@ -390,7 +390,8 @@ def test_programming_errors_are_not_input_errors(tmp_path):
 
 
 # ----------------------------------------------------------------------------- the command line
-SERIES = "taxon\tS1\tS2\tS3\tS4\tS5\nA\t10\t12\t9\t14\t11\nB\t30\t25\t33\t28\t31\nC\t5\t7\t4\t6\t8\n"
+SERIES = ("taxon\tS1\tS2\tS3\tS4\tS5\nA\t10\t12\t9\t14\t11\nB\t30\t25\t33\t28\t31\n"
+          "C\t5\t7\t4\t6\t8\n")
 SERIES_META = "sample\tday\nS1\t0\nS2\t1\nS3\t2\nS4\t3\nS5\t4\n"
 TEST = ["test", "{in}/counts.tsv", "--metadata", "{in}/meta.tsv", "--time-by", "day",
         "--replicates", "19", "--groupings", "2", "--no-influence"]

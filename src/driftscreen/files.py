@@ -1,6 +1,6 @@
 """Safe file output: nothing half-written is ever left under a final name.
 
-Output places given by the user are checked before any work starts
+Output places given by the user are checked before the analysis starts
 (:func:`check_output_file`, :func:`check_output_folder`): a bad one is a one-line
 :class:`driftscreen.errors.InputError` naming the option, the path and the fix. Files
 are written with the permissions the user's umask gives new files.

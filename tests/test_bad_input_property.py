@@ -2,13 +2,14 @@
 exit 2 with one line on stderr, and no input file changes.
 
 Each example starts from a small valid table (wide with taxa as rows or columns, or long;
-counts, or fractions with a --depth; plain or gzipped) and metadata, applies mistakes a user
-makes (numbers beyond any sequencing run, digit separators, other scripts' digits, a
-mistyped year, a table saved as Windows-1252, a ragged line, too few samples, out-of-range
-options and depths, output places that are files, folders, pipes, links, inputs or damaged
-resume stores) and runs `driftscreen test` or `driftscreen screen` in this process. The
-expected outcome comes from a model of the mutated table kept here (Python integers; the
-documented conversion round(fraction x depth)), independent of the code under test.
+counts, or fractions with --depth or --depth-by; plain or gzipped) and metadata, applies
+mistakes a user makes (numbers beyond any sequencing run, digit separators, other scripts'
+digits, a mistyped year, a table saved as Windows-1252, a ragged line, too few samples,
+out-of-range options and depths, output places that are files, folders, pipes, links,
+inputs or damaged resume stores) and runs `driftscreen test` or `driftscreen screen` in
+this process. The expected outcome comes from a model of the mutated table kept here
+(Python integers; the documented conversion round(fraction x depth)), independent of the
+code under test.
 """
 
 from __future__ import annotations
@@ -74,6 +75,7 @@ class Scenario:
     layout: str = "taxa-rows"
     gzipped: bool = False
     depth: str | None = None  # a table of fractions converted at this --depth
+    depth_column: bool = False  # ... given in a metadata column (--depth-by) instead
 
 
 def mostly(usual: object, others: list | st.SearchStrategy) -> st.SearchStrategy:
@@ -108,7 +110,7 @@ def scenarios(draw: st.DrawFn) -> Scenario:
                     options=draw(option_strategy()),
                     place=draw(mostly(places[0], places[1:])),
                     layout=draw(st.sampled_from(LAYOUTS)), gzipped=draw(st.booleans()),
-                    depth=depth)
+                    depth=depth, depth_column=draw(st.booleans()))
 
 
 # ----------------------------------------------------------------------------- the model
@@ -219,7 +221,11 @@ def write_inputs(folder: Path, scenario: Scenario) -> list[str]:
     times = time_texts(scenario)
     if times is None:
         return [str(counts), *depth]
-    metadata = "sample\ttime\n" + "".join(f"{s}\t{t}\n" for s, t in zip(SAMPLES, times))
+    rows = [["sample", "time"]] + [[sample, time] for sample, time in zip(SAMPLES, times)]
+    if depth and scenario.depth_column:
+        rows = [row + [scenario.depth if k else "reads"] for k, row in enumerate(rows)]
+        depth = ["--depth-by", "reads"]
+    metadata = "".join("\t".join(row) + "\n" for row in rows)
     (folder / "metadata.tsv").write_text(metadata, encoding="utf-8")
     return [str(counts), "--metadata", str(folder / "metadata.tsv"), "--time-by", "time",
             *depth]

@@ -22,6 +22,8 @@ from driftscreen.intake.tables import (file_label, file_stem, plural, quoted_lis
                                        read_text_table)
 from driftscreen.intake.taxonomy import (Rank, aggregate, aggregation_notes, lineage_grouping,
                                          map_grouping, parse_rank)
+from driftscreen.limits import (MAX_READS, MAX_READS_TEXT, MAX_SPAN_DAYS, MAX_SPAN_YEARS,
+                               MIN_SAMPLES_SNAPSHOT, MIN_TAXA)
 
 OTHER = "other"
 CHOICES = {
@@ -81,8 +83,8 @@ def read_datasets(
     lineage: str | None = None,
     rank: str | None = None,
     taxon_map: str | os.PathLike | None = None,
-    min_samples: int = 3,
-    min_taxa: int = 2,
+    min_samples: int = MIN_SAMPLES_SNAPSHOT,
+    min_taxa: int = MIN_TAXA,
 ) -> list[Dataset]:
     """Read an abundance table and its metadata into checked datasets.
 
@@ -195,7 +197,7 @@ def check_options(metadata: object, sample_id: str | None, dataset_by: Sequence[
 
 
 def check_depth_number(depth: object) -> None:
-    """One depth for all samples: a finite number > 0."""
+    """One depth for all samples: a finite number > 0 and at most :data:`MAX_READS`."""
     try:
         value = float(depth)  # type: ignore[arg-type]
     except (TypeError, ValueError):
@@ -203,6 +205,10 @@ def check_depth_number(depth: object) -> None:
                          fix="give the number of reads per sample, e.g. --depth 10000") from None
     if not (math.isfinite(value) and value > 0):
         raise InputError(f"depth {depth} is not a positive number", file="option --depth",
+                         fix="give the number of reads per sample, e.g. --depth 10000")
+    if value > MAX_READS:
+        raise InputError(f"depth {depth} is more reads than any sequencing run gives (at most "
+                         f"{MAX_READS_TEXT})", file="option --depth",
                          fix="give the number of reads per sample, e.g. --depth 10000")
 
 
@@ -290,6 +296,7 @@ def build_dataset(name: str, members: np.ndarray, table: Table, times: Times | N
         order = np.argsort(days_all, kind="stable")
         members, days = members[order], days_all[order]
         check_distinct_times(name, members, days, table, times)
+        check_span(name, members, days, table, times)
     if members.size < min_samples:
         raise InputError(f"only {plural(int(members.size), 'sample', 'samples')}, at least "
                          f"{min_samples} are needed",
@@ -337,6 +344,20 @@ def check_distinct_times(name: str, members: np.ndarray, days: np.ndarray, table
                          place=f"dataset '{name}'",
                          fix="give each sample of a time series its own time, or split the "
                              "data into more datasets with --dataset-by")
+
+
+def check_span(name: str, members: np.ndarray, days: np.ndarray, table: Table,
+               times: Times) -> None:
+    """One dataset's sampling times may span at most :data:`MAX_SPAN_YEARS` years."""
+    if days[-1] - days[0] > MAX_SPAN_DAYS:
+        first, last = int(members[0]), int(members[-1])
+        raise InputError(f"samples '{table.samples[first]}' ('{times.text[first]}') and "
+                         f"'{table.samples[last]}' ('{times.text[last]}') are "
+                         f"{(days[-1] - days[0]) / 365.25:.0f} years apart, more than a "
+                         f"sampling campaign of {MAX_SPAN_YEARS} years", file=times.label,
+                         place=f"dataset '{name}'",
+                         fix=f"correct the times in column '{times.column}' (a mistyped year, "
+                             "or times not in days?)")
 
 
 def remainder_notes(table: Table, members: np.ndarray) -> list[str]:

@@ -134,6 +134,20 @@ def test_file_conventions(tmp_path):
     assert_standard(only(read_datasets(write(tmp_path / "t.csv", trailing))))
 
 
+@pytest.mark.parametrize("name, encoding", [("Bacillus sp.\u2026", "cp1252"),
+                                            ("Nitrosom\u00f6nas", "cp1252"),
+                                            ("Bacillus\u2028sp", "utf-8"),
+                                            ("Bacillus\x0csp", "utf-8")])
+def test_taxon_names_in_single_byte_encodings_or_with_odd_breaks(tmp_path, name, encoding):
+    # Windows-1252 writes the ellipsis as byte 0x85, which is NEL (a line break to Python)
+    # in Latin-1 (Microsoft's code page 1252 table, from memory); U+2028 and form feed are
+    # line breaks to str.splitlines but not to a table.
+    text = "taxon\tS1\tS2\tS3\nA\t1\t2\t3\n" + name + "\t4\t5\t6\n"
+    path = tmp_path / "names.tsv"
+    path.write_bytes(text.encode(encoding))
+    assert only(read_datasets(path)).taxa == ("A", name)
+
+
 def test_lineage_column_is_not_read_as_a_sample(tmp_path):
     lines = taxa_rows().splitlines()
     text = lines[0] + "\ttaxonomy\n" + "".join(f"{line}\tk__Bacteria\n" for line in lines[1:])

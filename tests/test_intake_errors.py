@@ -1,14 +1,21 @@
-"""Bad input gives one-line InputErrors naming file, place and fix; inputs stay untouched."""
+"""Bad input gives one-line InputErrors naming file, place and fix; inputs stay untouched.
+
+The second table holds the same mistakes made on the command line (with bad options and
+output places), run in this process: each ends in one line on stderr and exit status 2.
+"""
 
 from __future__ import annotations
 
 import gzip
-import re
 import hashlib
+import os
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import pytest
+
+from cli_run import run_cli
 
 from driftscreen.errors import InputError
 from driftscreen.intake import read_datasets
@@ -87,6 +94,37 @@ CASES = [
     Case("relative-rounds-to-nothing", r"sample 'S1' has no reads after conversion at depth 1",
          counts="taxon\tS1\tS2\tS3\nA\t0.1\t0.5\t0.25\nB\t0.1\t0.5\t0.75\n",
          kwargs={"depth": 1, "remainder": "renormalise"}),
+    # counts no sequencing run gives, and digits that are not 0-9
+    Case("count-beyond-int64", r"counts\.tsv: row 3 \(taxon 'B'\), column 'S2': count "
+                               r"9\.22337e\+18 is more reads than any sequencing run gives "
+                               r"\(at most 10\^15\); correct the cell",
+         counts="taxon\tS1\tS2\tS3\nA\t1\t2\t3\nB\t4\t9223372036854775808\t6\n"),
+    Case("count-1e300", r"row 2 \(taxon 'A'\), column 'S3': count 1e\+300 is more reads",
+         counts="taxon\tS1\tS2\tS3\nA\t1\t2\t1e300\nB\t4\t5\t6\n"),
+    Case("count-just-above-bound", r"column 'S1': count 1e\+15 is more reads than any",
+         counts="taxon\tS1\tS2\tS3\nA\t1000000000000001\t2\t3\nB\t4\t5\t6\n"),
+    Case("sample-total-above-bound", r"counts\.tsv: column 'S1': sample 'S1' holds 1\.2e\+15 "
+                                     r"reads, more than any sequencing run gives",
+         counts="taxon\tS1\tS2\tS3\nA\t600000000000000\t2\t3\nB\t600000000000000\t5\t6\n"),
+    Case("digit-separator", r"counts\.tsv: row 3 \(taxon 'B'\), column 'S1': '1_234' is not a "
+                            r"plain number; write the count with the digits 0-9 only",
+         counts="taxon\tS1\tS2\tS3\nA\t1\t2\t3\nB\t1_234\t5\t6\n"),
+    Case("arabic-indic-digits", r"column 'S2': '\u0661\u0662' is not a plain number",
+         counts="taxon\tS1\tS2\tS3\nA\t1\t\u0661\u0662\t3\nB\t4\t5\t6\n"),
+    Case("fullwidth-digits", r"column 'S3': '\uff13' is not a plain number",
+         counts="taxon\tS1\tS2\tS3\nA\t1\t2\t\uff13\nB\t4\t5\t6\n"),
+    Case("depth-above-bound", r"^option --depth: depth 2e\+18 is more reads than any "
+                              r"sequencing run gives \(at most 10\^15\)",
+         kwargs={"depth": 2e18}),
+    Case("depth-column-above-bound", r"meta\.tsv: row 3, column 'reads': depth 1e\+19 of "
+                                     r"sample 'S2' is more reads than any sequencing run gives",
+         counts="taxon\tS1\tS2\tS3\nA\t0.5\t0.5\t0.25\nB\t0.5\t0.5\t0.75\n",
+         meta=meta_with("reads", ["10", "1e19", "10"]), kwargs={"depth_by": "reads"}),
+    Case("converted-above-bound", r"counts\.tsv: column 'S1': sample 'S1' holds "
+                                  r"1,000,500,000,000,000 reads after conversion at depth "
+                                  r"1e\+15, more than 10\^15; give the sample's real depth$",
+         counts="taxon\tS1\tS2\tS3\nA\t0.5005\t0.5\t0.25\nB\t0.5\t0.5\t0.75\n",
+         kwargs={"depth": 1e15}),
     # ids
     Case("duplicate-sample-header", r"counts\.tsv: header: duplicate sample id 'S1' in columns "
                                     r"2 and 3; give every sample a unique id$",
@@ -173,6 +211,14 @@ CASES = [
     Case("offset-without-time", r"row 2, column 'day': cannot read time '2021-02-27Z'",
          meta=meta_with("day", ["2021-02-27Z", "2021-02-28", "2021-03-03"]),
          kwargs={"time_by": "day"}),
+    Case("mistyped-year", r"meta\.tsv: dataset 'counts': samples 'S1' \('1025-04-01'\) and "
+                          r"'S3' \('2025-04-03'\) are 1000 years apart, more than a sampling "
+                          r"campaign of 200 years; correct the times in column 'date'",
+         meta=meta_with("date", ["1025-04-01", "2025-04-02", "2025-04-03"]),
+         kwargs={"time_by": "date"}),
+    Case("days-over-200-years", r"samples 'S1' \('0'\) and 'S3' \('80000'\) are 219 years "
+                                r"apart",
+         meta=meta_with("day", ["0", "1", "80000"]), kwargs={"time_by": "day"}),
     # dataset size
     Case("too-few-samples", r"counts\.tsv: dataset 'counts': only 2 samples, at least 3 are "
                             r"needed; add samples",
@@ -341,3 +387,166 @@ def test_programming_errors_are_not_input_errors(tmp_path):
     with pytest.raises(ValueError) as caught:
         read_datasets(tmp_path / "counts.tsv", layout="sideways")  # type: ignore[arg-type]
     assert not isinstance(caught.value, InputError)
+
+
+# ----------------------------------------------------------------------------- the command line
+SERIES = ("taxon\tS1\tS2\tS3\tS4\tS5\nA\t10\t12\t9\t14\t11\nB\t30\t25\t33\t28\t31\n"
+          "C\t5\t7\t4\t6\t8\n")
+SERIES_META = "sample\tday\nS1\t0\nS2\t1\nS3\t2\nS4\t3\nS5\t4\n"
+TEST = ["test", "{in}/counts.tsv", "--metadata", "{in}/meta.tsv", "--time-by", "day",
+        "--replicates", "19", "--groupings", "2", "--no-influence"]
+SCREEN = ["screen", *TEST[1:], "--quiet"]
+
+
+@dataclass
+class CliCase:
+    """One mistake on the command line: arguments (``{in}``: the inputs' folder, ``{tmp}``:
+    a scratch folder holding the file ``a-file``), files to make (content ``"/"``: a
+    folder, ``"|"``: a named pipe), links to make, expected message."""
+
+    id: str
+    pattern: str
+    arguments: list[str]
+    make: dict[str, str | bytes] = field(default_factory=dict)
+    links: dict[str, str] = field(default_factory=dict)
+    counts: str = SERIES
+    counts_name: str = "counts.tsv"
+
+
+CLI_CASES = [
+    # output places
+    CliCase("out-is-a-file", r"^driftscreen: error: .*a-file: option --out: is a file, not a "
+                             r"folder; give a folder \(it is created if needed\)$",
+            SCREEN + ["--out", "{tmp}/a-file"]),
+    CliCase("out-is-a-pipe", r"pipe: option --out: is a file, not a folder",
+            SCREEN + ["--out", "{tmp}/pipe"], make={"pipe": "|"}),
+    CliCase("out-is-link-to-file", r"link: option --out: is a file, not a folder",
+            SCREEN + ["--out", "{tmp}/link"], links={"link": "a-file"}),
+    CliCase("out-is-a-broken-link", r"broken: option --out: is a link to nothing; remove the "
+                                    r"link, or give another folder$",
+            SCREEN + ["--out", "{tmp}/broken"], links={"broken": "nowhere"}),
+    CliCase("out-under-a-file", r"a-file/out: option --out: is under the file .*a-file, not in "
+                                r"a folder; give a path in a folder$",
+            SCREEN + ["--out", "{tmp}/a-file/out"]),
+    CliCase("out-would-overwrite-input", r"results\.tsv: option --out: is the input file "
+                                         r".*results\.tsv \(inputs are never overwritten\); "
+                                         r"give another file name$",
+            ["screen", "{in}/results.tsv", "--replicates", "19", "--quiet", "--out", "{in}"],
+            counts_name="results.tsv"),
+    CliCase("output-is-a-folder", r"option --output: is a folder, not a file; give a file name",
+            TEST + ["--output", "{tmp}"]),
+    CliCase("output-under-a-file", r"a-file/report\.txt: option --output: is under the file",
+            TEST + ["--output", "{tmp}/a-file/report.txt"]),
+    CliCase("output-is-the-counts", r"counts\.tsv: option --output: is the input file "
+                                    r".*counts\.tsv \(inputs are never overwritten\)",
+            TEST + ["--output", "{in}/counts.tsv"]),
+    CliCase("output-links-to-the-counts", r"link: option --output: is the input file",
+            TEST + ["--output", "{tmp}/link"], links={"link": "{in}/counts.tsv"}),
+    CliCase("output-is-a-pipe", r"pipe: option --output: is not a regular file",
+            TEST + ["--output", "{tmp}/pipe"], make={"pipe": "|"}),
+    CliCase("figures-in-the-output", r"r\.txt: option --figures: is also given as --output; "
+                                     r"give --figures a place of its own$",
+            TEST + ["--output", "{tmp}/r.txt", "--figures", "{tmp}/r.txt"]),
+    CliCase("table-is-the-output", r"r\.txt: option --table: is also given as --output",
+            ["power", "--taxa", "5", "--samples", "10", "--interval", "1", "--depth", "100",
+             "--output", "{tmp}/r.txt", "--table", "{tmp}/r.txt"]),
+    # a damaged resume store
+    *[CliCase(f"store-{label}", r"out: option --out: holds a \.driftscreen folder that is not a "
+                                r"resume store of this driftscreen version \(settings\.json is "
+                                r"unreadable or of another layout\); give a new --out folder, "
+                                r"or remove .*out/\.driftscreen to start afresh$",
+              SCREEN + ["--out", "{tmp}/out"],
+              make={"out/.driftscreen/settings.json": content})
+      for label, content in (("settings-not-utf8", b"\xff\xfe{}"), ("settings-list", "[1]"),
+                             ("inputs-list", '{"inputs": [1]}'),
+                             ("inputs-number", '{"inputs": {"counts": 5}}'),
+                             ("sha256-number", '{"inputs": {"counts": {"sha256": 7}}}'),
+                             ("settings-folder", "/"))],
+    CliCase("store-records-without-settings", r"not a resume store of this driftscreen version "
+                                              r"\(it has records but no settings\.json\)",
+            SCREEN + ["--out", "{tmp}/out"], make={"out/.driftscreen/datasets/x.json": b"\xff"}),
+    # options the library refuses
+    CliCase("seed-negative", r"^driftscreen test: error: argument --seed: must be a whole number "
+                             r">= 0, got -1; see 'driftscreen test --help'$",
+            TEST + ["--seed", "-1"]),
+    CliCase("seed-negative-screen", r"argument --seed: must be a whole number >= 0, got -1",
+            SCREEN + ["--seed", "-1", "--out", "{tmp}/out"]),
+    CliCase("groupings-one", r"argument --groupings: must be a whole number >= 2, got 1",
+            TEST + ["--groupings", "1"]),
+    CliCase("jobs-zero", r"argument --jobs: must be a whole number >= 1, got 0",
+            TEST + ["--jobs", "0"]),
+    CliCase("depth-option-above-bound", r"argument --depth: must be a number of reads above 0 "
+                                        r"and at most 10\^15, got 9\.3e18",
+            TEST + ["--depth", "9.3e18"]),
+    CliCase("simulate-depth-above-bound", r"argument --depth: must be a whole number from 1 to "
+                                          r"10\^15, got 10000000000000000000",
+            ["simulate", "--out", "{tmp}/sim", "--depth", "10000000000000000000"]),
+    CliCase("read-precision-too-small", r"argument --read-noise: a read precision must be a "
+                                        r"number >= 1e-06, got 1e-300",
+            TEST + ["--read-noise", "1e-300"]),
+    CliCase("simulate-interval-too-small", r"argument --interval: must be a number from 1e-06 "
+                                           r"to 73050, got 1e-300",
+            ["simulate", "--out", "{tmp}/sim", "--interval", "1e-300"]),
+    CliCase("simulate-theta-too-large", r"argument --theta: must be a number from 1e-06 to "
+                                        r"1e\+12, got 1e300",
+            ["simulate", "--out", "{tmp}/sim", "--theta", "1e300"]),
+    CliCase("simulate-depth-spread-too-large", r"argument --depth-spread: must be a number from "
+                                               r"0 to 5, got 1000",
+            ["simulate", "--out", "{tmp}/sim", "--depth-spread", "1000"]),
+    CliCase("simulate-span-over-200-years", r"^driftscreen: error: option --interval: 100 "
+                                            r"samples every 1000 days span 271 years, more than "
+                                            r"a sampling campaign of 200 years; give fewer",
+            ["simulate", "--out", "{tmp}/sim", "--interval", "1000", "--samples", "100"]),
+    # the size limits of the analysis
+    CliCase("three-sample-series", r"^driftscreen: error: .*counts\.tsv, .*meta\.tsv: dataset "
+                                   r"'counts': a time series needs at least 4 samples, this "
+                                   r"dataset has 3; add samples",
+            TEST, counts="taxon\tS1\tS2\tS3\nA\t10\t12\t9\nB\t30\t25\t33\n"),
+    CliCase("three-sample-series-power", r"dataset 'counts': a time series needs at least 4 "
+                                         r"samples, this dataset has 3; choose another dataset",
+            ["power", *TEST[1:6], "--datasets", "2"],
+            counts="taxon\tS1\tS2\tS3\nA\t10\t12\t9\nB\t30\t25\t33\n"),
+]
+
+
+def make_cli_case(tmp_path: Path, case: CliCase) -> list[str]:
+    """Write the case's inputs (in ``tmp/in``) and files; its arguments with paths filled in."""
+    inputs, scratch = tmp_path / "in", tmp_path / "tmp"
+    inputs.mkdir()
+    scratch.mkdir()
+    (inputs / case.counts_name).write_text(case.counts, encoding="utf-8")
+    (inputs / "meta.tsv").write_text(SERIES_META, encoding="utf-8")
+    (scratch / "a-file").write_text("keep me\n", encoding="utf-8")
+
+    def filled(text: str) -> str:
+        return text.replace("{in}", str(inputs)).replace("{tmp}", str(scratch))
+
+    for name, content in case.make.items():
+        path = scratch / name
+        path.parent.mkdir(parents=True, exist_ok=True)
+        if content == "/":
+            path.mkdir()
+        elif content == "|":  # a special file, like /dev/null (which no test may touch)
+            os.mkfifo(path)
+        elif isinstance(content, bytes):
+            path.write_bytes(content)
+        else:
+            path.write_text(content, encoding="utf-8")
+    for name, target in case.links.items():
+        (scratch / name).symlink_to(scratch / filled(target))
+    return [filled(argument) for argument in case.arguments]
+
+
+@pytest.mark.parametrize("case", CLI_CASES, ids=[c.id for c in CLI_CASES])
+def test_bad_command_line_gives_one_line_and_exit_2(tmp_path, case):
+    arguments = make_cli_case(tmp_path, case)
+    before = {**checksums(tmp_path / "in"), **checksums(tmp_path / "tmp")}
+    status, _, stderr = run_cli(arguments)
+    assert status == 2, stderr
+    assert stderr.count("\n") == 1 and stderr.endswith("\n"), stderr
+    assert re.search(case.pattern, stderr.rstrip("\n")), stderr
+    assert {**checksums(tmp_path / "in"), **checksums(tmp_path / "tmp")} == before
+
+
+def test_cli_case_ids_are_unique():
+    assert len({c.id for c in CLI_CASES}) == len(CLI_CASES)

@@ -20,13 +20,16 @@ from scipy import stats
 from chi_square import pooled_chi_square_pvalue
 from driftscreen.dataset import Design
 from driftscreen.neutral.model import NeutralModel
+from driftscreen.synthetic import metacommunity
 from driftscreen.neutral.simulate import (
+    MIN_START_CONCENTRATION,
     iter_simulate,
     replicates_per_block,
     sequence,
     simulate,
     simulate_abundances,
     simulate_conditioned,
+    start_concentration,
     transition,
 )
 
@@ -404,6 +407,33 @@ def test_conditioned_replicates_keep_the_first_sample_and_relax_from_it():
         expected = p + (start - p) * np.exp(-0.3 * design.times[t])
         # the posterior mean is (theta p + N_0)/(theta + n): 0.25% from the observed start
         np.testing.assert_allclose(observed.mean(axis=0), expected, atol=0.01)
+
+
+def test_start_concentration_recovers_the_spread_of_a_disturbed_start():
+    # Dirichlet-multinomial moments (Mosimann 1962, Biometrika 49:65): reads of depth n from
+    # Dirichlet(kappa p) have Var(Y_i) = p_i (1 - p_i) (n + kappa) / (n (kappa + 1)), so the
+    # method-of-moments kappa of single first samples centres on the true one.
+    rng = np.random.default_rng(5)
+    p = metacommunity(60, rng)
+    model = NeutralModel(p, 500.0, 0.2)
+    estimates = []
+    for _ in range(400):
+        start = rng.dirichlet(20.0 * p)
+        estimates.append(start_concentration(model, rng.multinomial(5_000, start)))
+    assert 17.0 < np.median(estimates) < 23.5
+
+
+def test_start_concentration_is_theta_for_a_stationary_start_and_bounded():
+    rng = np.random.default_rng(6)
+    p = metacommunity(40, rng)
+    model = NeutralModel(p, 200.0, 0.2)
+    estimates = np.array([start_concentration(model, rng.multinomial(2_000, rng.dirichlet(200.0 * p)))
+                          for _ in range(400)])
+    assert np.all((estimates >= MIN_START_CONCENTRATION) & (estimates <= 200.0))
+    assert np.median(estimates) > 150.0
+    far = np.zeros(40, dtype=np.int64)
+    far[0] = 2_000
+    assert start_concentration(model, far) == MIN_START_CONCENTRATION
 
 
 def test_conditioning_needs_a_time_series_and_a_matching_first_sample():

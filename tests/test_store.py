@@ -86,16 +86,29 @@ def test_intake_option_difference_is_named(tmp_path, inputs):
     assert fingerprint_key(old) != fingerprint_key(new)
 
 
-def test_records_of_other_settings_and_broken_records_are_ignored(tmp_path, inputs):
+def test_records_of_other_settings_and_temporary_files_are_ignored(tmp_path, inputs):
     out = tmp_path / "out"
     store = ResultStore.open(out, fingerprint(inputs))
     store.save("good", {"v": 1})
     folder = store.records_folder
     (folder / record_file_name("stale")).write_text(
         json.dumps({"settings": "0" * 64, "name": "stale", "outcome": {}}), encoding="utf-8")
-    (folder / record_file_name("broken")).write_text('{"settings": ', encoding="utf-8")
     (folder / ".good.json.x.part").write_text("half", encoding="utf-8")
     assert store.finished() == {"good": {"v": 1}}
+
+
+@pytest.mark.parametrize("content", [b'{"settings": ', b"\xff\xfe{}", b"[1]",
+                                     b'{"settings": 5, "name": [1]}',
+                                     b'{"settings": "0", "name": "x", "outcome": 3}'])
+def test_broken_records_are_refused_in_one_line(tmp_path, inputs, content):
+    store = ResultStore.open(tmp_path / "out", fingerprint(inputs))
+    store.save("good", {"v": 1})
+    (store.records_folder / record_file_name("broken")).write_bytes(content)
+    with pytest.raises(InputError) as caught:
+        store.finished()
+    message = caught.value.one_line()
+    assert "\n" not in message and "is not a resume store of this driftscreen version" in message
+    assert message.endswith(f"give a new --out folder, or remove {store.folder} to start afresh")
 
 
 def test_record_file_names_are_safe_and_distinct():
@@ -115,9 +128,30 @@ def test_save_is_atomic_and_leaves_no_temporary_files(tmp_path, inputs):
     assert len(store.finished()) == 5
 
 
-def test_unreadable_settings_file_starts_afresh(tmp_path, inputs):
+@pytest.mark.parametrize("content", [b"{", b"\xff\xfe{", b"null", b"[1, 2]", b"{}",
+                                     b'{"inputs": [1]}', b'{"inputs": {"counts": 5}}',
+                                     b'{"inputs": {"counts": {"sha256": 7}}}'])
+def test_unreadable_or_misshapen_settings_are_refused_and_kept(tmp_path, inputs, content):
     out = tmp_path / "out"
     store = ResultStore.open(out, fingerprint(inputs))
-    store.settings_path.write_text("{", encoding="utf-8")
-    reopened = ResultStore.open(out, fingerprint(inputs, seed=5))
-    assert reopened.stored_fingerprint()["seed"] == 5
+    store.settings_path.write_bytes(content)
+    with pytest.raises(InputError, match=r"settings\.json is unreadable or of another layout\); "
+                                         r"give a new --out folder, or remove .*\.driftscreen"):
+        ResultStore.open(out, fingerprint(inputs, seed=5))
+    assert store.settings_path.read_bytes() == content
+
+
+def test_settings_file_that_is_a_folder_is_refused(tmp_path, inputs):
+    out = tmp_path / "out"
+    (out / STORE_FOLDER / "settings.json").mkdir(parents=True)
+    with pytest.raises(InputError, match="not a resume store of this driftscreen version"):
+        ResultStore.open(out, fingerprint(inputs))
+
+
+def test_store_stopped_before_its_settings_starts_afresh(tmp_path, inputs):
+    out = tmp_path / "out"
+    (out / STORE_FOLDER).mkdir(parents=True)
+    store = ResultStore.open(out, fingerprint(inputs))
+    assert store.stored_fingerprint()["seed"] == 1
+
+

@@ -333,3 +333,17 @@ def test_a_taxon_departing_in_every_dataset_is_reported_across_the_screen(tmp_pa
     section = report[report.index("Taxa departing across datasets"):]
     assert "taxon_03" in section.splitlines()[4]
     assert max(len(line) for line in report.splitlines()) <= WIDTH
+
+
+def test_taxa_file_that_is_the_input_or_the_report_is_refused_before_any_work(tables,
+                                                                              capsys):
+    counts, metadata = tables
+    base = ["test", str(counts), "--metadata", str(metadata), "--dataset-by", "dataset",
+            "--dataset", "pot_1", "--replicates", "9", "--groupings", "10"]
+    before = counts.read_bytes()
+    assert main(base + ["--taxa", str(counts)]) == 2
+    assert "option --taxa" in capsys.readouterr().err
+    assert counts.read_bytes() == before
+    same = str(counts.parent / "out.txt")
+    assert main(base + ["--taxa", same, "--output", same]) == 2
+    assert "is also given as --output" in capsys.readouterr().err

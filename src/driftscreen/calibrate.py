@@ -35,6 +35,8 @@ from joblib import Parallel, delayed
 
 from driftscreen import seeds
 from driftscreen.dataset import Dataset, Design
+from driftscreen.limits import (GROUPINGS, JOBS, READ_PRECISION, REPLICATES, SEED,
+                               check_analysable)
 from driftscreen.neutral.fit import (
     CONDITIONED_MIN_SPAN,
     NOISE_GRID,
@@ -95,10 +97,11 @@ class CalibrationSettings:
     null: NullOptions = NullOptions()
 
     def __post_init__(self) -> None:
-        if self.replicates < 1:
-            raise ValueError("replicates must be at least 1")
-        if self.groupings < 2:
-            raise ValueError("groupings must be at least 2")
+        REPLICATES.check("replicates", self.replicates)
+        GROUPINGS.check("groupings", self.groupings)
+        SEED.check("seed", self.seed)
+        if not isinstance(self.null.noise, str):
+            READ_PRECISION.check("a fixed read precision", self.null.noise)
 
 
 @dataclass(frozen=True)
@@ -594,7 +597,14 @@ def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int =
     NeutralityResult
         Per statistic ``statistic``, ``pvalue``, ``null_distribution`` and effect sizes,
         the fitted null with bootstrap intervals, and ``summary()``.
+
+    Raises
+    ------
+    InputError
+        A design too small to analyse (:func:`driftscreen.limits.unanalysable_reason`).
     """
+    check_analysable(dataset)
+    JOBS.check("jobs", jobs)
     settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed,
                                    null=NullOptions(noise=noise, start=start))
     plan = plan_calibration(dataset, settings, statistics)

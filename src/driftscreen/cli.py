@@ -10,11 +10,14 @@ from __future__ import annotations
 import argparse
 import math
 import sys
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
 
 from driftscreen import __version__
 from driftscreen.errors import InputError
+from driftscreen.limits import (DEPTH_SPREAD, GROUPINGS, INTERVAL, JOBS, MAX_READS,
+                               MAX_READS_TEXT, READ_PRECISION, READS, REPLICATES, SEED, THETA,
+                               IntegerRange, NumberRange)
 from driftscreen.neutral.model import START_CHOICES, NullOptions
 
 EXIT_INPUT = 2
@@ -36,8 +39,46 @@ def positive_int(text: str) -> int:
     return value
 
 
+def whole_number(allowed: IntegerRange) -> Callable[[str], int]:
+    """An argument type accepting exactly the whole numbers of ``allowed``."""
+    def parse(text: str) -> int:
+        try:
+            value: int | None = int(text)
+        except ValueError:
+            value = None
+        if value is None or value not in allowed:
+            raise argparse.ArgumentTypeError(f"must be {allowed.describe()}, got {text}")
+        return value
+    return parse
+
+
+def number_in(allowed: NumberRange) -> Callable[[str], float]:
+    """An argument type accepting exactly the numbers of ``allowed``."""
+    def parse(text: str) -> float:
+        try:
+            value = float(text)
+        except ValueError:
+            value = math.nan
+        if value not in allowed:
+            raise argparse.ArgumentTypeError(f"must be {allowed.describe()}, got {text}")
+        return value
+    return parse
+
+
+def read_depth(text: str) -> float:
+    """--depth: a number of reads per sample, above 0 and at most :data:`MAX_READS`."""
+    try:
+        value = float(text)
+    except ValueError:
+        value = math.nan
+    if not (math.isfinite(value) and 0 < value <= MAX_READS):
+        raise argparse.ArgumentTypeError(
+            f"must be a number of reads above 0 and at most {MAX_READS_TEXT}, got {text}")
+    return value
+
+
 def read_noise(text: str) -> str | float:
-    """--read-noise: 'estimate', 'off' or a Dirichlet-multinomial precision C > 0."""
+    """--read-noise: 'estimate', 'off' or a Dirichlet-multinomial precision C."""
     if text in ("estimate", "off"):
         return text
     try:
@@ -45,8 +86,9 @@ def read_noise(text: str) -> str | float:
     except ValueError:
         raise argparse.ArgumentTypeError(
             f"must be 'estimate', 'off' or a read precision C > 0, got {text}") from None
-    if not (math.isfinite(value) and value > 0):
-        raise argparse.ArgumentTypeError(f"a read precision must be positive, got {text}")
+    if value not in READ_PRECISION:
+        raise argparse.ArgumentTypeError(
+            f"a read precision must be {READ_PRECISION.describe()}, got {text}")
     return value
 
 
@@ -59,14 +101,14 @@ def at_least_two(text: str) -> int:
 
 def positive_float(text: str) -> float:
     value = float(text)
-    if not value > 0:
+    if not (math.isfinite(value) and value > 0):
         raise argparse.ArgumentTypeError(f"must be a positive number, got {text}")
     return value
 
 
 def nonnegative_float(text: str) -> float:
     value = float(text)
-    if not value >= 0:
+    if not (math.isfinite(value) and value >= 0):
         raise argparse.ArgumentTypeError(f"must be zero or positive, got {text}")
     return value
 
@@ -83,13 +125,16 @@ def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = F
     """
     if optional_counts:
         parser.add_argument("counts", nargs="?",
-                            help="abundance table (CSV/TSV, wide or long; .gz allowed) whose "
-                                 "design to plan for; or leave it out and give --taxa, "
-                                 "--samples, --interval and --depth")
+                            help="abundance table (CSV/TSV, wide or long, .gz allowed; or "
+                                 "BIOM) whose design to plan for; or leave it out and give "
+                                 "--taxa, --samples, --interval and --depth")
     else:
-        parser.add_argument("counts", help="abundance table (CSV/TSV, wide or long; .gz allowed)")
+        parser.add_argument("counts", help="abundance table (CSV/TSV, wide or long, .gz "
+                                              "allowed; or BIOM)")
     group = parser.add_argument_group("input")
-    group.add_argument("--metadata", metavar="FILE", help="sample metadata table (CSV/TSV)")
+    group.add_argument("--metadata", metavar="FILE",
+                       help="sample metadata table (CSV/TSV); wins over the sample metadata "
+                            "inside a BIOM file")
     group.add_argument("--sample-id", metavar="COL",
                        help="metadata column holding sample ids (default: the first column)")
     group.add_argument("--dataset-by", metavar="COL[,COL...]", type=column_list, default=[],
@@ -99,7 +144,7 @@ def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = F
                             "without it every dataset is a snapshot design")
     group.add_argument("--depth-by", metavar="COL",
                        help="metadata column with each sample's sequencing depth (reads)")
-    group.add_argument("--depth", metavar="READS", type=positive_float,
+    group.add_argument("--depth", metavar="READS", type=read_depth,
                        help="one sequencing depth for every sample (relative-abundance tables)"
                             + ("; without COUNTS: median reads per sample of the design"
                                if optional_counts else ""))
@@ -113,10 +158,11 @@ def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = F
     group.add_argument("--orientation", choices=["auto", "taxa-rows", "taxa-columns"],
                        default="auto", help="for wide tables: are taxa rows or columns")
     group.add_argument("--lineage", metavar="COL",
-                       help="table column with lineage strings, for --rank")
+                       help="table column (BIOM: observation metadata field) with "
+                            "lineage strings, for --rank")
     group.add_argument("--rank", metavar="RANK",
-                       help="aggregate taxa to this rank (e.g. genus) using --lineage "
-                            "or --taxon-map")
+                       help="aggregate taxa to this rank (e.g. genus) using --lineage, "
+                            "a BIOM file's taxonomy or --taxon-map")
     group.add_argument("--taxon-map", metavar="FILE",
                        help="two-column file mapping taxon to group, to aggregate taxa")
 
@@ -130,23 +176,26 @@ def intake_options(args: argparse.Namespace) -> dict:
 
 
 def read_input(args: argparse.Namespace) -> list:
+    """Every dataset of the table, however small: the analysis applies the size limits."""
     from driftscreen.intake import read_datasets
 
-    return read_datasets(args.counts, args.metadata, **intake_options(args))
+    return read_datasets(args.counts, args.metadata, **intake_options(args), min_samples=1,
+                         min_taxa=1)
 
 
 def add_calibration_options(parser: argparse.ArgumentParser, replicates: int = 999,
                             title: str = "calibration") -> argparse._ArgumentGroup:
     """--replicates, --groupings, --seed and --jobs, in an argument group it returns."""
     group = parser.add_argument_group(title)
-    group.add_argument("--replicates", metavar="B", type=positive_int, default=replicates,
+    group.add_argument("--replicates", metavar="B", type=whole_number(REPLICATES),
+                       default=replicates,
                        help=f"neutral bootstrap replicates (default {replicates}); "
                             "p-values resolve down to 1/(B+1)")
-    group.add_argument("--groupings", metavar="R", type=positive_int, default=200,
+    group.add_argument("--groupings", metavar="R", type=whole_number(GROUPINGS), default=200,
                        help="random groupings of taxa for regrouping_invariance (default 200)")
-    group.add_argument("--seed", metavar="S", type=int, default=0,
+    group.add_argument("--seed", metavar="S", type=whole_number(SEED), default=0,
                        help="master random seed (default 0)")
-    group.add_argument("--jobs", metavar="J", type=positive_int, default=1,
+    group.add_argument("--jobs", metavar="J", type=whole_number(JOBS), default=1,
                        help="worker processes (results do not depend on it; default 1)")
     return group
 
@@ -183,17 +232,17 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--taxa", type=at_least_two, default=40, help="number of taxa (default 40)")
     p.add_argument("--samples", type=at_least_two, default=100,
                    help="samples per dataset (default 100)")
-    p.add_argument("--interval", type=positive_float, default=1.0,
+    p.add_argument("--interval", type=number_in(INTERVAL), default=1.0,
                    help="mean days between samples (default 1)")
     p.add_argument("--irregular", action="store_true",
                    help="irregular sampling: gamma-distributed gaps with that mean")
     p.add_argument("--snapshot", action="store_true",
                    help="independent replicate communities, no time axis")
-    p.add_argument("--depth", type=positive_int, default=10_000,
+    p.add_argument("--depth", type=whole_number(READS), default=10_000,
                    help="median reads per sample (default 10000)")
-    p.add_argument("--depth-spread", type=nonnegative_float, default=0.0,
+    p.add_argument("--depth-spread", type=number_in(DEPTH_SPREAD), default=0.0,
                    help="standard deviation of log depth across samples (default 0)")
-    p.add_argument("--theta", type=positive_float, default=50.0,
+    p.add_argument("--theta", type=number_in(THETA), default=50.0,
                    help="immigration parameter theta (default 50)")
     p.add_argument("--rate", type=positive_float, default=0.2,
                    help="relaxation rate per day: correlations decay as exp(-rate*lag) "
@@ -207,7 +256,8 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--strength", type=nonnegative_float,
                    help="niche strength for --model logistic (sigma) or lotka-volterra "
                         "(mean competition); default: the model's own")
-    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--seed", type=whole_number(SEED), default=0,
+                   help="random seed (default 0)")
     p.set_defaults(handler=run_simulate)
 
 
@@ -352,13 +402,13 @@ def add_power(sub: argparse._SubParsersAction) -> None:
     group.add_argument("--taxa", metavar="K", type=positive_int, help="number of taxa")
     group.add_argument("--samples", metavar="T", type=positive_int,
                        help="samples per dataset (time points, or replicate communities)")
-    group.add_argument("--interval", metavar="D", type=positive_float,
+    group.add_argument("--interval", metavar="D", type=number_in(INTERVAL),
                        help="days between samples (the mean, with --irregular)")
     group.add_argument("--irregular", action="store_true",
                        help="gamma-distributed gaps with mean --interval")
     group.add_argument("--snapshot", action="store_true",
                        help="replicate communities observed once, no time axis")
-    group.add_argument("--depth-spread", metavar="S", type=nonnegative_float,
+    group.add_argument("--depth-spread", metavar="S", type=number_in(DEPTH_SPREAD),
                        help="standard deviation of log depth across samples (default 0)")
     group = p.add_argument_group("alternative")
     group.add_argument("--alternative", choices=["logistic", "lotka-volterra"],
@@ -406,7 +456,8 @@ def run_power(args: argparse.Namespace) -> int:
                            groupings=args.groupings, seed=args.seed, jobs=args.jobs,
                            alpha=args.alpha, timescale=args.timescale, noise=args.noise,
                            output=args.output, table=args.table,
-                           messages=None if args.quiet else sys.stderr)
+                           messages=None if args.quiet else sys.stderr,
+                           inputs=dataset.source if dataset else ())
     sys.stdout.write(report)
     return 0
 
@@ -418,9 +469,9 @@ def add_demo(sub: argparse._SubParsersAction) -> None:
                                    "write everything into a folder.")
     p.add_argument("--out", metavar="DIR", default="driftscreen-demo",
                    help="folder for the demo's inputs and outputs (default driftscreen-demo)")
-    p.add_argument("--replicates", metavar="B", type=positive_int, default=199,
+    p.add_argument("--replicates", metavar="B", type=whole_number(REPLICATES), default=199,
                    help="neutral bootstrap replicates (default 199 for a quick demo)")
-    p.add_argument("--jobs", metavar="J", type=positive_int, default=1,
+    p.add_argument("--jobs", metavar="J", type=whole_number(JOBS), default=1,
                    help="worker processes (default 1)")
     p.set_defaults(handler=run_demo)
 

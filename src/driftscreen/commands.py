@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import inspect
+import os
 import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import replace
@@ -13,7 +14,10 @@ from typing import TYPE_CHECKING, Any, TextIO
 from driftscreen import seeds
 from driftscreen.dataset import Dataset
 from driftscreen.errors import InputError
-from driftscreen.files import atomic_write_text
+from driftscreen.files import (atomic_write_text, check_output_file, check_output_folder,
+                               same_place)
+from driftscreen.limits import (MAX_SPAN_DAYS, MAX_SPAN_YEARS, MIN_TAXA, THETA, check_analysable,
+                               minimum_samples)
 from driftscreen.neutral.model import NeutralModel, NullOptions
 from driftscreen.neutral.simulate import simulate
 from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
@@ -33,6 +37,9 @@ RESULTS_JSON_FILE = "results.json"
 REPORT_FILE = "report.txt"
 TAXA_FILE = "taxa.tsv"
 TAXA_ACROSS_FILE = "taxa_across.tsv"
+#: The files a screen writes into its output folder.
+SCREEN_FILES = (RESULTS_FILE, PARAMETERS_FILE, RESULTS_JSON_FILE, REPORT_FILE, TAXA_FILE,
+                TAXA_ACROSS_FILE)
 
 
 #: Fingerprint entry of a screen run without the most influential samples.
@@ -108,6 +115,9 @@ def simulate_command(out: Path, *, n_taxa: int, n_samples: int, interval: float 
                      rate: float, n_datasets: int, seed: int, model: str = "neutral",
                      strength: float | None = None) -> tuple[Path, Path, Path]:
     """`driftscreen simulate`: write datasets that intake reads back, and their truth."""
+    check_output_folder(out, "--out", writes=(COUNTS_FILE, METADATA_FILE, TRUTH_FILE))
+    THETA.check("theta", theta)
+    check_design_span(n_samples, interval)
     spec = DesignSpec(n_samples=n_samples, interval=interval, irregular=irregular,
                       depth=depth, depth_spread=depth_spread)
     width = len(str(n_datasets))
@@ -120,6 +130,16 @@ def simulate_command(out: Path, *, n_taxa: int, n_samples: int, interval: float 
     text = "\t".join(columns) + "\n" + "".join(
         "\t".join(row[c] for c in columns) + "\n" for row in rows)
     return counts_path, metadata_path, atomic_write_text(out / TRUTH_FILE, text)
+
+
+def check_design_span(n_samples: int, interval: float | None) -> None:
+    """A synthetic time series spans at most :data:`driftscreen.limits.MAX_SPAN_DAYS`, the
+    longest span intake accepts."""
+    if interval is not None and interval * (n_samples - 1) > MAX_SPAN_DAYS:
+        raise InputError(f"{n_samples} samples every {interval:g} days span "
+                         f"{interval * (n_samples - 1) / 365.25:.0f} years, more than a "
+                         f"sampling campaign of {MAX_SPAN_YEARS} years",
+                         file="option --interval", fix="give fewer samples or a shorter interval")
 
 
 def choose_dataset(datasets: Sequence[Dataset], name: str | None, source: str) -> Dataset:
@@ -165,8 +185,14 @@ def test_command(dataset: Dataset, *, replicates: int, groupings: int, seed: int
     from driftscreen.report.figures import require_matplotlib, write_figures
     from driftscreen.report.text import verdict_word
 
+    if output:
+        check_output_file(output, "--output", dataset.source)
+    if taxa:
+        check_output_file(taxa, "--taxa", dataset.source)
     if figures is not None:
+        check_output_folder(figures, "--figures", dataset.source)
         require_matplotlib()
+    check_distinct_outputs({"--output": output, "--taxa": taxa, "--figures": figures})
     settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed,
                                    null=null)
     result = neutrality_test(dataset, replicates=replicates, groupings=groupings, seed=seed,
@@ -271,8 +297,11 @@ def screen_command(counts: str, metadata: str | None = None, *, out: Path,
     from driftscreen.store import ResultStore, settings_fingerprint
 
     started = time.monotonic()
+    sources = [path for path in (counts, metadata, intake.get("taxon_map")) if path is not None]
+    check_output_folder(out, "--out", sources, writes=SCREEN_FILES)
     check_backend(backend, scheduler)
     if figures is not None:
+        check_output_folder(figures, "--figures", sources)
         require_matplotlib()
     settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed,
                                    null=null)
@@ -393,8 +422,6 @@ def power_design(dataset: Dataset | None, *, n_taxa: int | None, n_samples: int 
         a design too small to analyse.
     """
     from driftscreen.power import PowerDesign
-    from driftscreen.screen import (MIN_SAMPLES_SNAPSHOT, MIN_SAMPLES_TIME_SERIES, MIN_TAXA,
-                                    unanalysable_reason)
 
     given = {"--taxa": n_taxa, "--samples": n_samples, "--interval": interval,
              "--irregular": irregular or None, "--snapshot": snapshot or None,
@@ -406,11 +433,7 @@ def power_design(dataset: Dataset | None, *, n_taxa: int | None, n_samples: int 
                              file=f"option {named[0]}",
                              fix="give either COUNTS (and intake options) or the design "
                                  "options --taxa, --samples, --interval, --depth")
-        reason = unanalysable_reason(dataset)
-        if reason:
-            raise InputError(f"dataset '{dataset.name}' is {reason}",
-                             file=", ".join(dataset.source) or None,
-                             fix="choose another dataset with --dataset")
+        check_analysable(dataset, fix="choose another dataset with --dataset")
         return PowerDesign.from_dataset(dataset)
     missing = [option for option, value in (("--taxa", n_taxa), ("--samples", n_samples),
                                             ("--depth", depth)) if value is None]
@@ -425,17 +448,38 @@ def power_design(dataset: Dataset | None, *, n_taxa: int | None, n_samples: int 
         option = "--interval" if interval is not None else "--irregular"
         raise InputError("a snapshot design has no sampling times", file=f"option {option}",
                          fix="drop it, or drop --snapshot")
-    minimum = MIN_SAMPLES_SNAPSHOT if snapshot else MIN_SAMPLES_TIME_SERIES
+    minimum = minimum_samples(time_series=not snapshot)
     if n_samples < minimum:
         raise InputError(f"{n_samples} samples are too few to analyse",
                          file="option --samples", fix=f"give at least {minimum}")
     if n_taxa < MIN_TAXA:
         raise InputError(f"{n_taxa} taxa are too few to analyse", file="option --taxa",
                          fix=f"give at least {MIN_TAXA}")
+    check_design_span(n_samples, None if snapshot else interval)
     return PowerDesign.from_numbers(n_taxa=n_taxa, n_samples=n_samples,
                                     interval=None if snapshot else interval,
                                     irregular=irregular, depth=max(int(round(depth)), 1),
                                     depth_spread=depth_spread or 0.0)
+
+
+def check_power_outputs(output: str | None, table: str | None, inputs: Sequence[str]) -> None:
+    """`power --output` and `--table` are writable files, neither an input nor each other."""
+    if output:
+        check_output_file(output, "--output", inputs)
+    if table:
+        check_output_file(table, "--table", inputs)
+    check_distinct_outputs({"--output": output, "--table": table})
+
+
+def check_distinct_outputs(places: Mapping[str, str | os.PathLike | None]) -> None:
+    """No two output places of one command (by option) are the same place."""
+    given = [(option, path) for option, path in places.items() if path]
+    for index, (option, path) in enumerate(given):
+        for earlier, other in given[:index]:
+            if same_place(path, other):
+                raise InputError(f"is also given as {earlier}", file=str(path),
+                                 place=f"option {option}",
+                                 fix=f"give {option} a place of its own")
 
 
 def power_command(design: PowerDesign, *, alternative: str = "logistic",
@@ -443,15 +487,17 @@ def power_command(design: PowerDesign, *, alternative: str = "logistic",
                   groupings: int = 200, seed: int = 0, jobs: int = 1, alpha: float = 0.05,
                   timescale: float = 1.0, noise: float | None = None,
                   output: str | None = None, table: str | None = None,
-                  messages: TextIO | None = None) -> str:
+                  messages: TextIO | None = None, inputs: Sequence[str] = ()) -> str:
     """`driftscreen power`: the power report (also written to ``output``; the TSV table
     of :meth:`driftscreen.power.PowerResult.to_tsv` to ``table``).
 
     ``strengths`` is the comma-separated grid as typed (default: the alternative's grid);
-    ``noise`` is the environmental noise of the lotka-volterra alternative (default 0).
+    ``noise`` is the environmental noise of the lotka-volterra alternative (default 0);
+    ``inputs`` are the files the design was read from (never overwritten).
     """
     from driftscreen.power import NicheAlternative, parse_strengths, power_curve
 
+    check_power_outputs(output, table, inputs)
     if not 0.0 < alpha < 1.0:
         raise InputError(f"alpha {alpha:g} is not between 0 and 1", file="option --alpha",
                          fix="give a level such as 0.05")

@@ -10,6 +10,20 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from driftscreen.limits import MAX_READS, MAX_READS_TEXT
+
+
+def exact_reads(values: object, name: str) -> np.ndarray:
+    """``values`` as int64 reads, refusing any value a cast would wrap or round.
+
+    Reads are bounded by :data:`driftscreen.limits.MAX_READS` (intake reports larger
+    ones as input errors), so a larger value here is a programming error.
+    """
+    array = np.asarray(values)
+    if array.size and not (np.all(np.isfinite(array)) and np.abs(array).max() <= MAX_READS):
+        raise ValueError(f"{name} must be finite and at most {MAX_READS_TEXT} in size")
+    return array.astype(np.int64, copy=False)
+
 
 @dataclass(frozen=True)
 class Design:
@@ -28,7 +42,7 @@ class Design:
     times: np.ndarray | None = None
 
     def __post_init__(self) -> None:
-        depths = np.asarray(self.depths, dtype=np.int64)
+        depths = exact_reads(self.depths, "depths")
         if depths.ndim != 1 or depths.size == 0 or np.any(depths < 1):
             raise ValueError("depths must be a non-empty 1-D array of integers >= 1")
         object.__setattr__(self, "depths", depths)
@@ -104,7 +118,7 @@ class Dataset:
             raise ValueError("counts shape does not match samples and taxa")
         if counts.shape[0] != self.design.n_samples:
             raise ValueError("counts and design disagree on the number of samples")
-        object.__setattr__(self, "counts", counts.astype(np.int64, copy=False))
+        object.__setattr__(self, "counts", exact_reads(counts, "counts"))
         object.__setattr__(self, "taxa", tuple(self.taxa))
         object.__setattr__(self, "samples", tuple(self.samples))
 

@@ -31,7 +31,7 @@ from driftscreen import seeds
 from driftscreen.commands import (COUNTS_FILE, METADATA_FILE, PARAMETERS_FILE, REPORT_FILE,
                                   RESULTS_FILE, RESULTS_JSON_FILE, screen_command)
 from driftscreen.dataset import Dataset, Design
-from driftscreen.files import atomic_write_text
+from driftscreen.files import atomic_write_text, check_output_folder
 from driftscreen.intake.writer import counts_frame
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import simulate
@@ -204,6 +204,7 @@ def run_demo(out: Path, replicates: int = 199, jobs: int = 1,
         outputs are, and one line per reactor with its combined q-value and verdict.
     """
     out = Path(out)
+    check_output_folder(out, "--out")
     inputs = write_inputs(out / INPUT_FOLDER)
     results = out / RESULTS_FOLDER
     screen_command(str(inputs.counts), str(inputs.metadata), out=results,

@@ -48,6 +48,7 @@ from driftscreen import seeds
 from driftscreen.calibrate import (COMBINED, CalibrationPlan, CalibrationSettings, ChunkOutput,
                                    assemble, compute_statistics, plan_calibration, run_tasks)
 from driftscreen.dataset import Dataset, Design
+from driftscreen.limits import NOT_ANALYSED, unanalysable_reason
 from driftscreen.neutral.fit import fit_batch
 from driftscreen.neutral.model import NeutralModel, sampling_variance_factor
 from driftscreen.results import NeutralityResult, SampleInfluence, StatisticResult
@@ -205,8 +206,6 @@ def remaining_evidence(observed: Mapping[str, float], result: NeutralityResult) 
 
 def analysable_candidates(dataset: Dataset, order: Sequence[int]) -> tuple[list[int], str]:
     """The candidates whose removal leaves an analysable dataset, and why none is if so."""
-    from driftscreen.screen import unanalysable_reason
-
     kept, reason = [], ""
     for index in order:
         why = unanalysable_reason(without_sample(dataset, int(index)))
@@ -220,7 +219,7 @@ def analysable_candidates(dataset: Dataset, order: Sequence[int]) -> tuple[list[
 def not_determined_note(reason: str) -> str:
     """The note of a rejected dataset none of whose samples can be left out."""
     return (f"{NOTE_PREFIX} not determined: without one sample the dataset is "
-            f"{reason.removeprefix('not analysed: ')}")
+            f"{reason.removeprefix(NOT_ANALYSED)}")
 
 
 def plan_influence(dataset: Dataset, result: NeutralityResult, settings: CalibrationSettings,

@@ -31,10 +31,10 @@ from driftscreen import seeds
 from driftscreen.calibrate import COMBINED, CalibrationSettings, neutrality_test
 from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
+from driftscreen.limits import unanalysable_reason
 from driftscreen.niche import LotkaVolterraParameters, NoisyLotkaVolterra, StochasticLogistic
 from driftscreen.report.text import duration_text, number
 from driftscreen.results import NeutralityResult
-from driftscreen.screen import unanalysable_reason
 from driftscreen.statistics.registry import default_statistics
 from driftscreen.synthetic import DesignSpec, as_dataset
 

@@ -43,6 +43,7 @@ from driftscreen.errors import InputError
 from driftscreen.fdr import qvalues_by_statistic
 from driftscreen.influence import (LEVEL, NOTE_PREFIX, InfluencePlan, finish_influence,
                                    plan_influence, wants_influence)
+from driftscreen.limits import unanalysable_reason
 from driftscreen.report.text import duration_text
 from driftscreen.results import DatasetSummary, NeutralityResult, SampleInfluence
 from driftscreen.serialize import (result_from_dict, result_to_dict, summary_from_dict,
@@ -50,11 +51,6 @@ from driftscreen.serialize import (result_from_dict, result_to_dict, summary_fro
 from driftscreen.statistics.registry import STATISTIC_NAMES, default_statistics
 from driftscreen.store import ResultStore
 
-#: Smallest analysable designs: a time series needs a few intervals for the variogram fit
-#: of theta and the rate; a snapshot needs a few replicate communities for theta.
-MIN_SAMPLES_TIME_SERIES = 4
-MIN_SAMPLES_SNAPSHOT = 3
-MIN_TAXA = 2
 #: Seconds between two progress lines on stderr.
 PROGRESS_EVERY = 5.0
 BACKENDS = ("loky", "dask")
@@ -156,29 +152,21 @@ def outcome_from_dict(data: Mapping[str, Any]) -> DatasetOutcome:
                           None if result is None else result_from_dict(result), data["note"])
 
 
+def stored_outcome(store: ResultStore, name: str, data: Mapping[str, Any]) -> DatasetOutcome:
+    """:func:`outcome_from_dict` of a record found in ``store``; one of another layout
+    means the folder is not a store of this version."""
+    try:
+        return outcome_from_dict(data)
+    except (KeyError, IndexError, TypeError, ValueError, AttributeError):
+        raise store.not_a_store(f"the record of dataset '{name}' is of another layout") from None
+
+
 def screen_statistics(groupings: int) -> list[str]:
     """The configured statistics with all their options (for the settings fingerprint)."""
     return [repr(s) for s in default_statistics(time_series=True, n_groupings=groupings)]
 
 
 # ----------------------------------------------------------------------------- analysability
-def unanalysable_reason(dataset: Dataset) -> str:
-    """Why ``dataset`` cannot be analysed, or ``""`` if it can.
-
-    Time series need at least 4 samples (3 intervals) and snapshots at least 3 samples,
-    both at least 2 taxa with reads.
-    """
-    minimum = MIN_SAMPLES_TIME_SERIES if dataset.is_time_series else MIN_SAMPLES_SNAPSHOT
-    kind = "a time series" if dataset.is_time_series else "a snapshot design"
-    if dataset.n_samples < minimum:
-        return (f"not analysed: {kind} needs at least {minimum} samples, this dataset has "
-                f"{dataset.n_samples}")
-    if dataset.n_taxa < MIN_TAXA:
-        return (f"not analysed: at least {MIN_TAXA} taxa with reads are needed, this dataset "
-                f"has {dataset.n_taxa}")
-    return ""
-
-
 def failed_outcome(dataset: Dataset, note: str) -> DatasetOutcome:
     return DatasetOutcome(summarize_dataset(dataset), None, note)
 
@@ -311,7 +299,7 @@ def screen(datasets: Sequence[Dataset], settings: CalibrationSettings, *, jobs: 
     finished = store.finished() if store is not None else {}
     reused = [name for name in names if name in finished and name not in outcomes]
     for name in reused:
-        outcomes[name] = outcome_from_dict(finished[name])
+        outcomes[name] = stored_outcome(store, name, finished[name])
     pending = [d for d in datasets if d.name not in outcomes]
     progress = Progress(len(datasets), messages)
     if reused:

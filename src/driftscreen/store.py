@@ -13,7 +13,9 @@ configured statistics (the commands add the options of their follow-ups: ``detec
 when on, ``influence`` when off). A run with the same fingerprint reuses every finished
 record; a run with another fingerprint is refused, naming what differs. A record holds the
 dataset's result with its follow-ups (e.g. its most influential sample), so a resumed run
-does not redo them.
+does not redo them. A settings file or record that cannot be read, or is of another
+layout, means the folder holds no store of this version: it is refused in one line (a new
+``--out``, or remove the store folder), never overwritten and never mixed with a new run.
 """
 
 from __future__ import annotations
@@ -175,6 +177,7 @@ class ResultStore:
         """
         store = cls(Path(out), fingerprint)
         stored = store.stored_fingerprint()
+        store.check_records_folder()
         if stored is None:
             atomic_write_text(store.settings_path, json.dumps(store.fingerprint, indent=1,
                                                               allow_nan=False) + "\n")
@@ -186,12 +189,39 @@ class ResultStore:
         return store
 
     def stored_fingerprint(self) -> dict[str, Any] | None:
-        """The fingerprint saved in the folder, or None if there is none (or unreadable)."""
-        try:
-            data = json.loads(self.settings_path.read_text(encoding="utf-8"))
-        except (FileNotFoundError, json.JSONDecodeError):
+        """The fingerprint saved in the folder, or None if the folder holds no store yet.
+
+        Raises
+        ------
+        InputError
+            If what the folder holds is unreadable or not a store of this version.
+        """
+        if not (self.folder.exists() or self.folder.is_symlink()):
             return None
-        return data if isinstance(data, dict) else None
+        if not self.folder.is_dir():
+            raise self.not_a_store(f"{STORE_FOLDER} is not a folder")
+        if not (self.settings_path.exists() or self.settings_path.is_symlink()):
+            if self.records_folder.is_dir() and any(self.records_folder.glob("*.json")):
+                raise self.not_a_store(f"it has records but no {SETTINGS_FILE}")
+            return None  # stopped before its settings were written: nothing to keep
+        data = read_json(self.settings_path)
+        if data is None or not well_formed_fingerprint(data):
+            raise self.not_a_store(f"{SETTINGS_FILE} is unreadable or of another layout")
+        return data
+
+    def check_records_folder(self) -> None:
+        """The records folder, if present, is a folder."""
+        if (self.records_folder.exists() or self.records_folder.is_symlink()) and \
+                not self.records_folder.is_dir():
+            raise self.not_a_store(f"{STORE_FOLDER}/{RECORDS_FOLDER} is not a folder")
+
+    def not_a_store(self, reason: str) -> InputError:
+        """The one-line refusal of a folder that holds no store of this version."""
+        return InputError(f"holds a {STORE_FOLDER} folder that is not a resume store of this "
+                          f"driftscreen version ({reason})", file=str(self.out),
+                          place="option --out",
+                          fix=f"give a new --out folder, or remove {self.folder} to start "
+                              "afresh")
 
     def save(self, name: str, outcome: Mapping[str, Any]) -> Path:
         """Write the record of finished dataset ``name`` atomically."""
@@ -205,11 +235,39 @@ class ResultStore:
         if not self.records_folder.is_dir():
             return outcomes
         for path in sorted(self.records_folder.glob("*.json")):
-            try:
-                record = json.loads(path.read_text(encoding="utf-8"))
-            except (OSError, json.JSONDecodeError):
-                continue
-            if (isinstance(record, dict) and record.get("settings") == self.key
-                    and path.name == record_file_name(str(record.get("name")))):
+            record = read_json(path)
+            if not well_formed_record(record):
+                raise self.not_a_store(f"the record {path.name} is unreadable or of another "
+                                       "layout")
+            if record["settings"] == self.key and path.name == record_file_name(record["name"]):
                 outcomes[record["name"]] = record["outcome"]
         return outcomes
+
+
+def read_json(path: Path) -> Any:
+    """The JSON value of a UTF-8 file, or None if it cannot be read as such."""
+    try:
+        return json.loads(path.read_bytes().decode("utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError, RecursionError):
+        return None
+
+
+def well_formed_fingerprint(data: Any) -> bool:
+    """True if ``data`` has the layout :func:`settings_fingerprint` writes, in this version."""
+    if not isinstance(data, dict) or data.get("store_format") != STORE_FORMAT:
+        return False
+    inputs = data.get("inputs")
+    if not isinstance(inputs, dict) or not isinstance(data.get("intake"), dict):
+        return False
+    if not all(isinstance(entry, dict) and isinstance(entry.get("sha256"), str)
+               and isinstance(entry.get("path", ""), str) for entry in inputs.values()):
+        return False
+    statistics = data.get("statistics")
+    return (all(type(data.get(key)) is int for key in ("replicates", "groupings", "seed"))
+            and isinstance(statistics, list) and all(isinstance(s, str) for s in statistics))
+
+
+def well_formed_record(record: Any) -> bool:
+    """True if ``record`` has the layout :meth:`ResultStore.save` writes."""
+    return (isinstance(record, dict) and isinstance(record.get("settings"), str)
+            and isinstance(record.get("name"), str) and isinstance(record.get("outcome"), dict))

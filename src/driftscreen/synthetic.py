@@ -14,6 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from driftscreen.dataset import Dataset, Design
+from driftscreen.limits import DEPTH_SPREAD, INTERVAL, MAX_READS, MAX_SPAN_DAYS
 
 
 @dataclass(frozen=True)
@@ -40,6 +41,14 @@ class DesignSpec:
     depth: int = 10_000
     depth_spread: float = 0.0
 
+    def __post_init__(self) -> None:
+        if self.interval is not None:
+            INTERVAL.check("interval", self.interval)
+            if self.interval * (self.n_samples - 1) > MAX_SPAN_DAYS:
+                raise ValueError(f"{self.n_samples} samples every {self.interval:g} days span "
+                                 f"more than {MAX_SPAN_DAYS:g} days")
+        DEPTH_SPREAD.check("depth_spread", self.depth_spread)
+
     def draw(self, rng: np.random.Generator) -> Design:
         """A concrete design: times in days from 0 and per-sample depths."""
         if self.n_samples < 2:
@@ -47,7 +56,7 @@ class DesignSpec:
         depths = np.full(self.n_samples, float(self.depth))
         if self.depth_spread > 0:
             depths *= np.exp(rng.normal(0.0, self.depth_spread, self.n_samples))
-        depths = np.maximum(np.rint(depths), 10).astype(np.int64)
+        depths = np.clip(np.rint(depths), 10, MAX_READS).astype(np.int64)
         if self.interval is None:
             return Design(depths=depths)
         if self.irregular:

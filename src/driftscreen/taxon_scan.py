@@ -349,7 +349,7 @@ def leave_one_out(null: np.ndarray, tailed: np.ndarray | bool = True) -> np.ndar
     below = stats.rankdata(high_filled, method="max", axis=0) - 1
     above = n - stats.rankdata(high_filled, method="min", axis=0)
     ordered = np.sort(high_filled, axis=0)
-    second_lowest = ordered[1]
+    second_lowest = ordered[min(1, ordered.shape[0] - 1)]  # one replicate: no others
     second_highest = np.take_along_axis(ordered, np.maximum(n - 2, 0)[None], axis=0)[0]
     squares = np.where(finite, (null - center) ** 2, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):

@@ -18,6 +18,7 @@ import numpy as np
 
 from driftscreen.errors import InputError
 from driftscreen.intake.counts import CountTable
+from driftscreen.limits import MAX_READS, MAX_READS_TEXT
 
 SUM_TOLERANCE = 1e-3
 FULL_SCALE = {"fraction": 1.0, "percent": 100.0}
@@ -74,7 +75,8 @@ class Converted:
 
 
 def check_values(table: CountTable, abundance: str) -> None:
-    """No negative values and no sample without reads."""
+    """No negative values, none above :data:`MAX_READS` (nor a sample total), and no
+    sample without reads."""
     negative = table.values < 0
     if negative.any():
         sample, taxon = table.first_cell(negative)
@@ -83,12 +85,32 @@ def check_values(table: CountTable, abundance: str) -> None:
         noun = "count" if abundance in ("auto", "counts") and whole else "abundance"
         raise InputError(f"negative {noun} {value:g}", file=table.label,
                          place=table.cell_place(sample, taxon), fix=f"{noun}s must be >= 0")
+    check_bounds(table)
     empty = np.flatnonzero(table.values.sum(axis=1) == 0)
     if empty.size:
         sample = int(empty[0])
         raise InputError(f"no reads in sample '{table.samples[sample]}' (every value is 0)",
                          file=table.label, place=table.sample_place(sample),
                          fix="remove the sample from the table (and from the metadata)")
+
+
+def check_bounds(table: CountTable) -> None:
+    """Every value and every sample total at most :data:`MAX_READS`, so counts stay exact."""
+    huge = table.values > MAX_READS
+    if huge.any():
+        sample, taxon = table.first_cell(huge)
+        raise InputError(f"count {table.values[sample, taxon]:g} is more reads than any "
+                         f"sequencing run gives (at most {MAX_READS_TEXT})", file=table.label,
+                         place=table.cell_place(sample, taxon),
+                         fix="correct the cell (counts are reads per sample and taxon)")
+    totals = table.values.sum(axis=1)
+    over = np.flatnonzero(totals > MAX_READS)
+    if over.size:
+        sample = int(over[0])
+        raise InputError(f"sample '{table.samples[sample]}' holds {totals[sample]:g} reads, "
+                         f"more than any sequencing run gives (at most {MAX_READS_TEXT})",
+                         file=table.label, place=table.sample_place(sample),
+                         fix="correct the counts of the sample")
 
 
 def detect_abundance(table: CountTable, abundance: str) -> tuple[str, list[str]]:
@@ -172,7 +194,8 @@ def check_sums(table: CountTable, kind: str, share: np.ndarray) -> None:
 
 def check_converted(table: CountTable, counts: np.ndarray, other: np.ndarray | None,
                     depths: Depths) -> None:
-    """A sample whose abundances all round to zero reads has no data."""
+    """A sample whose abundances all round to zero reads has no data; one whose rounded
+    reads (abundances may sum to a little over 1) exceed :data:`MAX_READS` is too large."""
     totals = counts.sum(axis=1) + (0 if other is None else other)
     empty = np.flatnonzero(totals == 0)
     if empty.size:
@@ -181,6 +204,13 @@ def check_converted(table: CountTable, counts: np.ndarray, other: np.ndarray | N
                          f"depth {depths.values[sample]:g}", file=table.label,
                          place=table.sample_place(sample),
                          fix="give the sample's real depth, or remove the sample")
+    over = np.flatnonzero(totals > MAX_READS)
+    if over.size:
+        sample = int(over[0])
+        raise InputError(f"sample '{table.samples[sample]}' holds {totals[sample]:,} reads after "
+                         f"conversion at depth {depths.values[sample]:g}, more than "
+                         f"{MAX_READS_TEXT}", file=table.label, place=table.sample_place(sample),
+                         fix="give the sample's real depth")
 
 
 def depth_phrase(depths: Depths) -> str:

@@ -18,6 +18,7 @@ import pandas as pd
 from driftscreen.errors import InputError
 from driftscreen.intake.tables import (TextTable, find_column, parse_numbers, quoted_list,
                                        read_text_table)
+from driftscreen.limits import MAX_READS, MAX_READS_TEXT
 
 ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}([T ]\d{2}:\d{2}(:\d{2}(\.\d+)?)?(Z|[+-]\d{2}:?\d{2})?)?")
 DAY = np.timedelta64(1, "D")
@@ -120,7 +121,7 @@ class Times:
     Attributes
     ----------
     values:
-        Days (float64) for numeric times, or ``datetime64[ns]`` for dates.
+        Days (float64) for numeric times, or ``datetime64[us]`` for dates.
     text:
         The cells as written.
     is_date:
@@ -172,8 +173,9 @@ def read_times(metadata: Metadata, column: int, samples: Sequence[str]) -> Times
 
 def parse_dates(metadata: Metadata, text: Sequence[str], place: Callable[[int], str]
                 ) -> np.ndarray:
-    """ISO dates as ``datetime64[ns]`` (UTC where an offset is given); an impossible date
-    (e.g. 30 February) is an input error."""
+    """ISO dates as ``datetime64[us]`` (UTC where an offset is given; microseconds cover
+    every year from 1 to 9999 exactly); an impossible date (e.g. 30 February) is an input
+    error."""
     stamps = []
     for k, t in enumerate(text):
         try:
@@ -184,7 +186,7 @@ def parse_dates(metadata: Metadata, text: Sequence[str], place: Callable[[int], 
         if stamp.tzinfo is not None:
             stamp = stamp.tz_convert("UTC").tz_localize(None)
         stamps.append(stamp.to_datetime64())
-    return np.array(stamps, dtype="datetime64[ns]")
+    return np.array(stamps, dtype="datetime64[us]")
 
 
 def read_depths(metadata: Metadata, column: int, samples: Sequence[str]) -> np.ndarray:
@@ -199,4 +201,11 @@ def read_depths(metadata: Metadata, column: int, samples: Sequence[str]) -> np.n
         raise InputError(f"depth {depths[k]:g} of sample '{samples[k]}' is not positive",
                          file=metadata.label, place=metadata.table.place(int(rows[k]), column),
                          fix="give the number of reads of the sample (> 0)")
+    huge = np.flatnonzero(depths > MAX_READS)
+    if huge.size:
+        k = int(huge[0])
+        raise InputError(f"depth {depths[k]:g} of sample '{samples[k]}' is more reads than any "
+                         f"sequencing run gives (at most {MAX_READS_TEXT})", file=metadata.label,
+                         place=metadata.table.place(int(rows[k]), column),
+                         fix="give the number of reads of the sample")
     return depths

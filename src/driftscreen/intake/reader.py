@@ -14,6 +14,7 @@ from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
 from driftscreen.intake.abundance import (Converted, Depths, check_values, detect_abundance,
                                           to_counts)
+from driftscreen.intake.biom import is_biom, read_biom
 from driftscreen.intake.counts import CountTable, is_long, read_long, read_wide
 from driftscreen.intake.metadata import (Metadata, Times, check_join, dataset_names, read_depths,
                                          read_metadata, read_times)
@@ -21,6 +22,8 @@ from driftscreen.intake.tables import (file_label, file_stem, plural, quoted_lis
                                        read_text_table)
 from driftscreen.intake.taxonomy import (Rank, aggregate, aggregation_notes, lineage_grouping,
                                          map_grouping, parse_rank)
+from driftscreen.limits import (MAX_READS, MAX_READS_TEXT, MAX_SPAN_DAYS, MAX_SPAN_YEARS,
+                               MIN_SAMPLES_SNAPSHOT, MIN_TAXA)
 
 OTHER = "other"
 CHOICES = {
@@ -80,8 +83,8 @@ def read_datasets(
     lineage: str | None = None,
     rank: str | None = None,
     taxon_map: str | os.PathLike | None = None,
-    min_samples: int = 3,
-    min_taxa: int = 2,
+    min_samples: int = MIN_SAMPLES_SNAPSHOT,
+    min_taxa: int = MIN_TAXA,
 ) -> list[Dataset]:
     """Read an abundance table and its metadata into checked datasets.
 
@@ -89,9 +92,11 @@ def read_datasets(
     ----------
     counts:
         Wide (taxa as rows or columns) or long (sample, taxon, count) CSV/TSV table,
-        optionally gzip-compressed; read counts or relative abundances.
+        optionally gzip-compressed, or a BIOM file (JSON 1.0 or HDF5 2.1; needs the
+        ``biom`` extra); read counts or relative abundances.
     metadata:
-        Sample metadata table joined on sample id (needed for the ``*_by`` options).
+        Sample metadata table joined on sample id (needed for the ``*_by`` options,
+        unless a BIOM file carries sample metadata; given with one, this table wins).
     layout, orientation:
         Table layout and, for wide tables, which axis holds taxa (``"auto"`` detects).
     sample_id:
@@ -109,8 +114,9 @@ def read_datasets(
         For relative samples summing below 1: pool the rest as taxon ``other``
         (``"auto"``, ``"pool"``) or ``"renormalise"``.
     lineage, rank, taxon_map:
-        Aggregate taxa to ``rank`` using a lineage column, or to the groups of a
-        two-column taxon map file (whose groups are lineages when ``rank`` is given).
+        Aggregate taxa to ``rank`` using a lineage column (of a BIOM file: an observation
+        metadata field, ``taxonomy`` if not named), or to the groups of a two-column
+        taxon map file (whose groups are lineages when ``rank`` is given).
     min_samples, min_taxa:
         Smallest acceptable dataset (taxa counted after dropping all-zero taxa).
 
@@ -126,12 +132,20 @@ def read_datasets(
     """
     check_arguments(layout, orientation, abundance, remainder, min_samples, min_taxa)
     dataset_by = (dataset_by,) if isinstance(dataset_by, str) else tuple(dict.fromkeys(dataset_by))
-    check_options(metadata, sample_id, dataset_by, time_by, depth_by, depth, lineage, rank,
-                  taxon_map)
+    inside = None
+    if is_biom(counts):
+        inside = read_biom(counts, layout=layout, orientation=orientation, sample_id=sample_id,
+                           metadata=metadata, lineage=lineage, rank=rank, taxon_map=taxon_map)
+        lineage = inside.lineage
+    own_metadata = None if inside is None else inside.samples
+    check_options(metadata if own_metadata is None else own_metadata, sample_id, dataset_by,
+                  time_by, depth_by, depth, lineage, rank, taxon_map)
     parsed_rank = None if rank is None else parse_rank(rank)
     meta = None if metadata is None else read_metadata(file_label(metadata), sample_id)
+    meta = meta if own_metadata is None else own_metadata
     columns = metadata_columns(meta, dataset_by, time_by, depth_by)
-    raw = read_count_table(counts, layout, orientation, lineage, meta)
+    raw = (read_count_table(counts, layout, orientation, lineage, meta) if inside is None
+           else inside.counts)
     table = prepare_table(raw, meta, columns.depth, depth, abundance, remainder, lineage,
                           parsed_rank, taxon_map)
     if meta is not None and columns.datasets:
@@ -183,7 +197,7 @@ def check_options(metadata: object, sample_id: str | None, dataset_by: Sequence[
 
 
 def check_depth_number(depth: object) -> None:
-    """One depth for all samples: a finite number > 0."""
+    """One depth for all samples: a finite number > 0 and at most :data:`MAX_READS`."""
     try:
         value = float(depth)  # type: ignore[arg-type]
     except (TypeError, ValueError):
@@ -191,6 +205,10 @@ def check_depth_number(depth: object) -> None:
                          fix="give the number of reads per sample, e.g. --depth 10000") from None
     if not (math.isfinite(value) and value > 0):
         raise InputError(f"depth {depth} is not a positive number", file="option --depth",
+                         fix="give the number of reads per sample, e.g. --depth 10000")
+    if value > MAX_READS:
+        raise InputError(f"depth {depth} is more reads than any sequencing run gives (at most "
+                         f"{MAX_READS_TEXT})", file="option --depth",
                          fix="give the number of reads per sample, e.g. --depth 10000")
 
 
@@ -278,6 +296,7 @@ def build_dataset(name: str, members: np.ndarray, table: Table, times: Times | N
         order = np.argsort(days_all, kind="stable")
         members, days = members[order], days_all[order]
         check_distinct_times(name, members, days, table, times)
+        check_span(name, members, days, table, times)
     if members.size < min_samples:
         raise InputError(f"only {plural(int(members.size), 'sample', 'samples')}, at least "
                          f"{min_samples} are needed",
@@ -325,6 +344,20 @@ def check_distinct_times(name: str, members: np.ndarray, days: np.ndarray, table
                          place=f"dataset '{name}'",
                          fix="give each sample of a time series its own time, or split the "
                              "data into more datasets with --dataset-by")
+
+
+def check_span(name: str, members: np.ndarray, days: np.ndarray, table: Table,
+               times: Times) -> None:
+    """One dataset's sampling times may span at most :data:`MAX_SPAN_YEARS` years."""
+    if days[-1] - days[0] > MAX_SPAN_DAYS:
+        first, last = int(members[0]), int(members[-1])
+        raise InputError(f"samples '{table.samples[first]}' ('{times.text[first]}') and "
+                         f"'{table.samples[last]}' ('{times.text[last]}') are "
+                         f"{(days[-1] - days[0]) / 365.25:.0f} years apart, more than a "
+                         f"sampling campaign of {MAX_SPAN_YEARS} years", file=times.label,
+                         place=f"dataset '{name}'",
+                         fix=f"correct the times in column '{times.column}' (a mistyped year, "
+                             "or times not in days?)")
 
 
 def remainder_notes(table: Table, members: np.ndarray) -> list[str]:

@@ -13,6 +13,7 @@ import gzip
 import io
 import math
 import os
+import re
 import zlib
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -26,6 +27,7 @@ from driftscreen.errors import InputError
 GZIP_MAGIC = b"\x1f\x8b"
 MISSING_TOKENS = frozenset({"", "na", "nan", "n/a", "null", "none", "-"})
 MAX_LISTED = 12
+LINE_BREAK = re.compile(r"\r\n|\r|\n")
 
 
 @dataclass(frozen=True)
@@ -93,7 +95,7 @@ def read_text_table(path: str | os.PathLike, min_columns: int = 2) -> TextTable:
     """
     label = file_label(path)
     text = decode_text(read_bytes(path, label), label)
-    numbered = [(number, line) for number, line in enumerate(text.splitlines(), start=1)]
+    numbered = list(enumerate(split_lines(text), start=1))
     header_at = first_header_line(numbered)
     if header_at is None:
         raise InputError("the file is empty", file=label,
@@ -142,14 +144,23 @@ def read_bytes(path: str | os.PathLike, label: str) -> bytes:
 
 
 def decode_text(raw: bytes, label: str) -> str:
-    """UTF-8 text (a byte-order mark is removed); Latin-1 as the fallback."""
+    """UTF-8 text (a byte-order mark is removed); else the single-byte Windows-1252 (what
+    spreadsheets on Windows write), or Latin-1 for the few bytes Windows-1252 leaves out."""
     if b"\x00" in raw[:65536]:
         raise InputError("not a text table (binary content)", file=label,
                          fix="export it as CSV or TSV text")
-    try:
-        return raw.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        return raw.decode("latin-1")
+    for encoding in ("utf-8-sig", "cp1252"):
+        try:
+            return raw.decode(encoding)
+        except UnicodeDecodeError:
+            continue
+    return raw.decode("latin-1")
+
+
+def split_lines(text: str) -> list[str]:
+    """Lines ended by ``\\n``, ``\\r\\n`` or ``\\r`` only: other characters Python reads as line
+    breaks (e.g. U+0085, U+2028, form feed) may stand inside a cell."""
+    return LINE_BREAK.split(text.removesuffix("\n").removesuffix("\r"))
 
 
 def first_header_line(numbered: Sequence[tuple[int, str]]) -> int | None:
@@ -298,7 +309,28 @@ def parse_numbers(table: TextTable, rows: np.ndarray | slice, columns: Sequence[
         row, column = (int(k) for k in np.argwhere(bad)[0])
         raise bad_cell_error(table.label, place(row, column), str(block[row, column]).strip(), what,
                              fix_missing)
+    check_plain_numbers(table.label, block, place, what)
     return numbers
+
+
+def check_plain_numbers(label: str, block: np.ndarray, place: Callable[[int, int], str],
+                        what: str) -> None:
+    """Numbers are written in ASCII digits without separators: Python also reads ``1_234``
+    and digits of other scripts, which no table exporter writes for a number."""
+    joined = "".join(block.ravel().tolist())
+    if joined.isascii() and "_" not in joined:
+        return
+    for (row, column), text in np.ndenumerate(block):
+        if not is_plain_number(text):
+            raise InputError(f"'{text.strip()}' is not a plain number", file=label,
+                             place=place(row, column),
+                             fix=f"write the {what} with the digits 0-9 only (no separators)")
+
+
+def is_plain_number(text: str) -> bool:
+    """ASCII characters and no digit-group separator ``_`` (surrounding spaces allowed)."""
+    stripped = text.strip()
+    return stripped.isascii() and "_" not in stripped
 
 
 def float_or_nan(text: str) -> float:

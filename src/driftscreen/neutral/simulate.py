@@ -48,6 +48,9 @@ BLOCK_BYTES = 64 * 2**20
 MEMORY_BUDGET = 256 * 2**20
 """Default bound on the live counts of :func:`iter_simulate`: the chunk the caller holds,
 the chunk being filled and one block."""
+MIN_START_CONCENTRATION = 1.0
+"""Least concentration of the prior of a conditioned start: Dirichlet(p), nearly no weight
+against the first sample's reads."""
 
 
 def replicates_per_block(n_taxa: int, n_samples: int) -> int:
@@ -316,12 +319,38 @@ def simulate(model: NeutralModel, design: Design, n_replicates: int,
     return next(_chunks(blocks, blocks.n_replicates))
 
 
+def start_concentration(model: NeutralModel, first_counts: np.ndarray) -> float:
+    """Concentration kappa of the prior Dirichlet(kappa p) of the community at the first sample.
+
+    A stationary start is Dirichlet(theta p); a disturbed one lies farther from p. With
+    Y_0 the first read fraction, n_eff its effective depth and rho = 1/(kappa + 1),
+    E[sum_i (Y_0i - p_i)^2] = sum_i p_i (1 - p_i) (rho + (1 - rho)/n_eff) under
+    Dirichlet(kappa p) (Mosimann 1962, Biometrika 49:65, Dirichlet-multinomial moments),
+    so kappa is the method-of-moments solution, kept in [MIN_START_CONCENTRATION, theta]:
+    theta for a start consistent with stationarity, smaller the farther it lies from p.
+    The squares are not divided by p_i, so rare taxa's skewed deviations do not dominate.
+    """
+    counts = np.asarray(first_counts, dtype=np.float64)
+    depth = counts.sum()
+    effective = 1.0 / (model.noise + (1.0 - model.noise) / depth)
+    heterozygosity = float(np.sum(model.p * (1.0 - model.p)))
+    if heterozygosity <= 0 or effective <= 1.0:
+        return float(model.theta)
+    spread = float(np.sum((counts / depth - model.p) ** 2)) / heterozygosity
+    start_variance = (spread - 1.0 / effective) / (1.0 - 1.0 / effective)
+    if start_variance <= 1.0 / (model.theta + 1.0):
+        return float(model.theta)
+    return float(np.clip(1.0 / start_variance - 1.0, MIN_START_CONCENTRATION, model.theta))
+
+
 def first_sample_posterior(model: NeutralModel, first_counts: np.ndarray, n_replicates: int,
                            rng: np.random.Generator) -> np.ndarray:
     """Draws of the community at the first sample given its reads, ``(R, K)``.
 
-    Under the stationary law Dirichlet(theta p) and multinomial reads N_0 the posterior
-    is Dirichlet(theta p + N_0) (Dirichlet-multinomial conjugacy). With technical noise
+    Under the prior Dirichlet(kappa p) and multinomial reads N_0 the posterior is
+    Dirichlet(kappa p + N_0) (Dirichlet-multinomial conjugacy), kappa from
+    :func:`start_concentration` (theta, the stationary law, unless the start lies
+    farther from p than stationarity allows, as after a disturbance). With technical noise
     the reads carry the information of a multinomial sample of the effective depth
     n_eff = 1 / (g + (1 - g)/n), so N_0 is scaled by n_eff / n (a moment-matched
     approximation of the non-conjugate posterior).
@@ -329,7 +358,7 @@ def first_sample_posterior(model: NeutralModel, first_counts: np.ndarray, n_repl
     counts = np.asarray(first_counts, dtype=np.float64)
     depth = counts.sum()
     effective = 1.0 / (model.noise + (1.0 - model.noise) / depth)
-    alpha = model.theta * model.p + counts * (effective / depth)
+    alpha = start_concentration(model, counts) * model.p + counts * (effective / depth)
     return dirichlet_rows(np.broadcast_to(alpha, (n_replicates, alpha.size)), rng)
 
 

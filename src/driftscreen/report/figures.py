@@ -65,6 +65,8 @@ SUFFIXES = ("null", "taylor", "volatility", "taxa")
 TAXON_COLOURS = {"within": "#2b6cb0", "above": "#e08a00", "below": "#7b3294",
                  "other": "#1a1a1a"}
 BAND_COLOUR = "#cccccc"
+#: Tick positions offered on the per-taxon figure's abundance axis (log scale).
+SHARE_TICKS = (1e-5, 1e-4, 1e-3, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1, 0.2, 0.5, 1.0)
 TAXA_COLUMNS = ("mean_abundance", "occupancy", "expected_occupancy", "occupancy_low",
                 "occupancy_high", "q_value", "direction")
 #: Tick positions offered on the volatility figure's axes (shown when inside the data range).
@@ -309,6 +311,7 @@ def taxa_figure(result: NeutralityResult) -> Figure | None:
                          s=16 if kind == "within" else 40, color=TAXON_COLOURS[kind],
                          label=label, zorder=3)
     axes.set_ylim(-0.03, 1.03)
+    plain_ticks(axes.xaxis, mean, SHARE_TICKS)
     axes.set_xlabel("mean relative abundance (fraction of reads; rare taxa in pools)")
     axes.set_ylabel("occupancy: share of samples with reads")
     axes.legend(fontsize=8, frameon=False, loc="lower right")

@@ -29,6 +29,7 @@ from driftscreen.validation import (
     MIN_POPULATION,
     NEUTRAL_COLLECTIONS,
     NICHE_COLLECTIONS,
+    OUTSIDE_NULL,
     WRIGHT_FISHER_MAX_SIZE,
     Scenario,
     bloom,
@@ -117,7 +118,7 @@ BUILDERS = {
 #: signature of multiplicative environmental noise, which the null (Dirichlet-multinomial
 #: reads, variance x (1 - x)) does not and should not absorb. The study reports it as a
 #: limitation; the calibration checks cover the collections inside the null.
-WITHIN_NULL = sorted(set(BUILDERS) - {"lognormal-noise"})
+WITHIN_NULL = sorted(set(BUILDERS) - set(OUTSIDE_NULL))
 
 
 def binomial_bounds(n: int, level: float) -> tuple[float, float]:

@@ -12,6 +12,7 @@ from driftscreen.neutral.simulate import simulate
 from driftscreen.statistics.fluctuation_scaling import (
     FluctuationScaling,
     neutral_weights,
+    slope_standard_error,
     taxon_moments,
     taylor_fit,
 )
@@ -66,6 +67,52 @@ def test_weighted_fit_matches_numpy_polyfit():
                           w=np.sqrt(weights[r, keep]))
         assert slope[r] == pytest.approx(b, rel=1e-10)
         assert intercept[r] == pytest.approx(c, rel=1e-10)
+
+
+def test_slope_standard_error_matches_scipy_linregress_unweighted():
+    # Source: scipy.stats.linregress, whose stderr is the ordinary least-squares standard
+    # error of the slope, sqrt(sum r^2 / ((n - 2) Sxx)).
+    from scipy import stats
+
+    rng = np.random.default_rng(8)
+    mean = np.exp(rng.uniform(-9, -1, (2, 25)))
+    variance = mean ** 1.2 * np.exp(rng.normal(0, 0.4, (2, 25)))
+    usable = np.ones_like(mean, dtype=bool)
+    se = slope_standard_error(mean, variance, usable)
+    for r in range(2):
+        fit = stats.linregress(np.log(mean[r]), np.log(variance[r]))
+        assert se[r] == pytest.approx(fit.stderr, rel=1e-10)
+
+
+def test_weighted_slope_standard_error_matches_numpy_polyfit_covariance():
+    # Source: numpy.polyfit(w=sqrt(weights), cov=True) scales the covariance by the weighted
+    # residual sum of squares over n - 2, the weighted least-squares standard error.
+    rng = np.random.default_rng(9)
+    mean = np.exp(rng.uniform(-9, -1, (3, 30)))
+    variance = mean ** 1.3 * np.exp(rng.normal(0, 0.5, (3, 30)))
+    weights = rng.uniform(0.01, 1.0, (3, 30))
+    usable = rng.random((3, 30)) < 0.8
+    usable[2, :3], usable[2, 3:] = True, False
+    se = slope_standard_error(mean, variance, usable, weights)
+    for r in range(2):
+        keep = usable[r]
+        _, cov = np.polyfit(np.log(mean[r, keep]), np.log(variance[r, keep]), 1,
+                            w=np.sqrt(weights[r, keep]), cov=True)
+        assert se[r] == pytest.approx(np.sqrt(cov[0, 0]), rel=1e-10)
+    assert np.isfinite(se[2])  # three taxa leave one residual degree of freedom
+    usable[2, 2] = False
+    assert np.isnan(slope_standard_error(mean, variance, usable, weights)[2])
+
+
+def test_standard_error_shrinks_with_more_samples_on_neutral_series():
+    model = NeutralModel(composition(30, 3), 80.0, 0.5)
+    rng = np.random.default_rng(12)
+    errors = []
+    for n_samples in (30, 240):
+        design = daily_design(n_samples, 20_000)
+        counts, fit = fitted(simulate(model, design, 40, rng), design)
+        errors.append(np.median(STAT.standard_error(counts, design, fit, rng)))
+    assert errors[1] < 0.75 * errors[0]  # residual misfit (the bend of p (1 - p)) stays
 
 
 def test_weights_follow_the_relative_variance_of_the_corrected_variance():

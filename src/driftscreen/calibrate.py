@@ -16,7 +16,9 @@ Recipe (Davison & Hinkley 1997, "Bootstrap Methods and their Application", ch. 4
    Davison & Hinkley 1997, sec. 2.2.1);
 3. re-fit the null on every replicate and recompute every statistic on it, so that the
    replicates go through the same estimation step as the data;
-4. p-value = (1 + #replicates at least as extreme) / (B + 1);
+4. p-value = (1 + #replicates at least as extreme) / (B + 1); a studentised statistic
+   measures "extreme" in units of each table's own standard error (studentised
+   bootstrap), the others on their own scale;
 5. ``combined``: the harmonic mean p-value (Wilson 2019) of the statistics' p-values,
    itself calibrated against the replicates' own leave-one-out p-values.
 
@@ -129,6 +131,7 @@ class ChunkOutput:
     rate: np.ndarray | None
     noise: np.ndarray | None = None
     taxa: np.ndarray | None = None
+    scales: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -144,6 +147,7 @@ class CalibrationPlan:
     tasks: tuple[ChunkTask, ...]
     taxon_scan: TaxonScan | None = None
     observed_taxa: np.ndarray | None = None
+    observed_scales: np.ndarray | None = None
 
     @property
     def raw_model(self) -> NeutralModel:
@@ -161,6 +165,16 @@ def compute_statistics(statistics: tuple[Statistic, ...], counts: np.ndarray, de
                        fit: NullFit, stream: np.random.SeedSequence) -> np.ndarray:
     """All statistics on a batch, shape ``(R, S)``; each gets a fresh generator on ``stream``."""
     columns = [stat.compute(counts, design, fit, seeds.generator(seeds.substream(stream, j)))
+               for j, stat in enumerate(statistics)]
+    return np.column_stack(columns).astype(np.float64)
+
+
+def compute_scales(statistics: tuple[Statistic, ...], counts: np.ndarray, design: Design,
+                   fit: NullFit, stream: np.random.SeedSequence) -> np.ndarray:
+    """Each table's standard error of every studentised statistic (1 for the others),
+    shape ``(R, S)``; the same fresh generators as :func:`compute_statistics`."""
+    columns = [stat.standard_error(counts, design, fit, seeds.generator(seeds.substream(stream, j)))
+               if stat.studentised else np.ones(counts.shape[0])
                for j, stat in enumerate(statistics)]
     return np.column_stack(columns).astype(np.float64)
 
@@ -244,6 +258,8 @@ def plan_calibration(dataset: Dataset, settings: CalibrationSettings,
     observed_fit = fit_batch(dataset.counts[None], design, options)
     observed = compute_statistics(statistics, dataset.counts[None], design, observed_fit,
                                   statistics_stream)[0]
+    observed_scales = compute_scales(statistics, dataset.counts[None], design, observed_fit,
+                                     statistics_stream)[0]
     model = bias_corrected_model(fitted_model(observed_fit, design, options), design,
                                  seeds.substream(root, seeds.PILOT),
                                  bool(observed_fit.clipped[0]), options, first_counts)
@@ -256,7 +272,8 @@ def plan_calibration(dataset: Dataset, settings: CalibrationSettings,
                   options, first_counts, scan)
         for index, start in enumerate(starts))
     return CalibrationPlan(dataset, settings, observed_fit, model, statistics, observed, tasks,
-                           scan, scan.measure(dataset.counts[None], design, observed_fit)[0])
+                           scan, scan.measure(dataset.counts[None], design, observed_fit)[0],
+                           observed_scales)
 
 
 def run_chunk(task: ChunkTask) -> ChunkOutput:
@@ -266,41 +283,68 @@ def run_chunk(task: ChunkTask) -> ChunkOutput:
     refit = fit_batch(counts, task.design, task.options)
     values = compute_statistics(task.statistics, counts, task.design, refit,
                                 task.statistics_stream)
+    scales = compute_scales(task.statistics, counts, task.design, refit,
+                            task.statistics_stream)
     taxa = None if task.taxon_scan is None else task.taxon_scan.measure(counts, task.design,
                                                                          refit)
-    return ChunkOutput(values, refit.theta, refit.rate, refit.noise, taxa)
+    return ChunkOutput(values, refit.theta, refit.rate, refit.noise, taxa, scales)
 
 
-def extremeness(values: np.ndarray, center: np.ndarray, alternative: str) -> np.ndarray:
-    """Larger means further from neutral: the value itself, or its distance from the center."""
-    return values if alternative == "greater" else np.abs(values - center)
+def extremeness(values: np.ndarray, center: np.ndarray, alternative: str,
+                scales: np.ndarray | float | None = None) -> np.ndarray:
+    """Larger means further from neutral: the value itself, or its distance from the center;
+    with ``scales`` (a studentised statistic), the distance from the center in those units."""
+    if scales is None:
+        return values if alternative == "greater" else np.abs(values - center)
+    distance = values - center if alternative == "greater" else np.abs(values - center)
+    return distance / scales
 
 
-def bootstrap_pvalue(observed: float, null: np.ndarray, alternative: str) -> float:
-    """(1 + #{null at least as extreme as observed}) / (B + 1), NaNs in ``null`` dropped."""
-    null = null[np.isfinite(null)]
+def usable_replicates(null: np.ndarray, scales: np.ndarray | None) -> np.ndarray:
+    """Replicates with a finite value (and, if studentised, a finite positive scale)."""
+    finite = np.isfinite(null)
+    if scales is not None:
+        finite &= np.isfinite(scales) & (scales > 0)
+    return finite
+
+
+def bootstrap_pvalue(observed: float, null: np.ndarray, alternative: str,
+                     observed_scale: float = 1.0, scales: np.ndarray | None = None) -> float:
+    """(1 + #{null at least as extreme as observed}) / (B + 1), undefined replicates dropped.
+
+    ``observed_scale`` and ``scales`` (the replicates' own) are the standard errors of a
+    studentised statistic; ``None`` compares the values themselves.
+    """
+    usable = usable_replicates(null, scales)
+    null = null[usable]
     if not np.isfinite(observed) or null.size == 0:
         return np.nan
+    if scales is not None and not (np.isfinite(observed_scale) and observed_scale > 0):
+        return np.nan
     center = np.median(null)
-    hits = np.count_nonzero(extremeness(null, center, alternative)
-                            >= extremeness(np.asarray(observed), center, alternative))
+    own = None if scales is None else scales[usable]
+    hits = np.count_nonzero(extremeness(null, center, alternative, own)
+                            >= extremeness(np.asarray(observed), center, alternative,
+                                           None if scales is None else observed_scale))
     return (1.0 + hits) / (null.size + 1.0)
 
 
-def leave_one_out_pvalues(null: np.ndarray, alternative: str) -> np.ndarray:
+def leave_one_out_pvalues(null: np.ndarray, alternative: str,
+                          scales: np.ndarray | None = None) -> np.ndarray:
     """p-value of each replicate against the other B - 1: (1 + #others as extreme) / B.
 
     A replicate's p-value computed this way has the same law as the observed p-value under
     the null, which is what calibrating the combination against the replicates needs.
-    NaN replicates get NaN.
+    Undefined replicates get NaN. ``scales`` as for :func:`bootstrap_pvalue`.
     """
-    finite = np.isfinite(null)
+    finite = usable_replicates(null, scales)
     out = np.full(null.shape, np.nan)
     n = np.count_nonzero(finite)
     if n < 2:
         return out
     center = np.median(null[finite])
-    score = extremeness(null[finite], center, alternative)
+    score = extremeness(null[finite], center, alternative,
+                        None if scales is None else scales[finite])
     at_least = n - np.searchsorted(np.sort(score), score, side="left")
     out[finite] = at_least / n  # counts itself once: (1 + #others) / ((n - 1) + 1)
     return out
@@ -331,17 +375,24 @@ def withheld_reason(stat: Statistic, model: NeutralModel, design: Design,
             "distribution; left out of the combined test")
 
 
-def calibrate_statistics(plan: CalibrationPlan, null: np.ndarray) -> dict[str, StatisticResult]:
-    """StatisticResults for every statistic and for their calibrated combination."""
+def calibrate_statistics(plan: CalibrationPlan, null: np.ndarray,
+                         null_scales: np.ndarray) -> dict[str, StatisticResult]:
+    """StatisticResults for every statistic and for their calibrated combination.
+
+    ``null`` and ``null_scales`` are the replicates' values and standard errors ``(B, S)``.
+    """
     results: dict[str, StatisticResult] = {}
     replicate_pvalues = np.full_like(null, np.nan)
     observed_pvalues = np.full(len(plan.statistics), np.nan)
     for j, stat in enumerate(plan.statistics):
         column = null[:, j]
-        finite = np.isfinite(column)
+        scales = null_scales[:, j] if stat.studentised else None
+        observed_scale = float(plan.observed_scales[j]) if stat.studentised else 1.0
+        finite = usable_replicates(column, scales)
         withheld = withheld_reason(stat, plan.model, plan.dataset.design, plan.settings.null)
         pvalue = np.nan if withheld else bootstrap_pvalue(plan.observed[j], column,
-                                                          stat.alternative)
+                                                          stat.alternative, observed_scale,
+                                                          scales)
         note = withheld or _statistic_note(int(np.count_nonzero(~finite)), column.size)
         if not np.isfinite(plan.observed[j]):
             note = "undefined for this dataset"
@@ -351,7 +402,7 @@ def calibrate_statistics(plan: CalibrationPlan, null: np.ndarray) -> dict[str, S
                                              column[finite], stat.alternative, note)
         if not withheld and stat.in_combination:
             observed_pvalues[j] = pvalue
-            replicate_pvalues[:, j] = leave_one_out_pvalues(column, stat.alternative)
+            replicate_pvalues[:, j] = leave_one_out_pvalues(column, stat.alternative, scales)
     results[COMBINED] = combine(observed_pvalues, replicate_pvalues)
     return results
 
@@ -535,6 +586,8 @@ def storable_table(table: pd.DataFrame, taxa: tuple[str, ...]) -> pd.DataFrame:
 def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityResult:
     """Turn the observed side and all replicate chunks into a NeutralityResult."""
     null = np.concatenate([out.values for out in outputs], axis=0)
+    null_scales = np.concatenate([np.ones_like(out.values) if out.scales is None else out.scales
+                                  for out in outputs], axis=0)
     model, raw = plan.model, plan.raw_model
     parameters = {"theta": parameter_interval(
         "theta", raw.theta, model.theta, np.concatenate([out.theta for out in outputs]))}
@@ -548,7 +601,7 @@ def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityRes
         parameters["precision"] = precision
     return NeutralityResult(
         dataset=summarize_dataset(plan.dataset), model=model,
-        statistics=calibrate_statistics(plan, null), parameters=parameters,
+        statistics=calibrate_statistics(plan, null, null_scales), parameters=parameters,
         replicates=plan.settings.replicates, seed=plan.settings.seed, notes=model.flags,
         diagnostics=observed_diagnostics(plan), taxa=taxon_results(plan, outputs))
 

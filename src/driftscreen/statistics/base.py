@@ -41,6 +41,14 @@ class Statistic(Protocol):
         True if its p-value enters ``combined``. A statistic whose calibration is not yet
         established on every kind of neutral data the validation study covers reports its
         p-value but stays out of the combination.
+    studentised:
+        True if the statistic also gives each table's own standard error
+        (``standard_error(counts, design, fit, rng)``, shape ``(R,)``), and the calibration
+        measures the distance from the null median in those units, for the data and every
+        replicate alike: the studentised bootstrap, whose p-values depend less on how far
+        the fitted parameters are from the true ones (Hall 1992, *The Bootstrap and
+        Edgeworth Expansion*; Davison & Hinkley 1997, *Bootstrap Methods and their
+        Application*, ch. 4).
     """
 
     name: str
@@ -48,6 +56,7 @@ class Statistic(Protocol):
     alternative: Alternative
     marginal: bool
     in_combination: bool
+    studentised: bool
 
     def compute(self, counts: np.ndarray, design: Design, fit: NullFit,
                 rng: np.random.Generator) -> np.ndarray:

@@ -152,6 +152,7 @@ class DispersionHeterogeneity:
     #: Out of ``combined``: on neutral series relaxing from a disturbance it rejected 0.10
     #: at 0.05 (bench/null_choices.py, 80 datasets), so its calibration is not established.
     in_combination: ClassVar[bool] = False
+    studentised: ClassVar[bool] = False
 
     log2_span: int = 3
 

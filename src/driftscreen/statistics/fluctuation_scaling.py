@@ -86,6 +86,7 @@ class FluctuationScaling:
     alternative: ClassVar[Alternative] = "two-sided"
     marginal: ClassVar[bool] = True
     in_combination: ClassVar[bool] = True
+    studentised: ClassVar[bool] = True
 
     min_mean_count: float = 1.0
 
@@ -96,6 +97,14 @@ class FluctuationScaling:
         weights = neutral_weights(fit.p, fit.theta, design.depths)
         _, slope = taylor_fit(moments.mean, moments.corrected, self.usable(moments), weights)
         return slope
+
+    def standard_error(self, counts: np.ndarray, design: Design, fit: NullFit,
+                       rng: np.random.Generator) -> np.ndarray:
+        """Standard error of each table's slope from its own residuals, shape ``(R,)``."""
+        moments = taxon_moments(counts, design.depths, fit.noise)
+        weights = neutral_weights(fit.p, fit.theta, design.depths)
+        return slope_standard_error(moments.mean, moments.corrected, self.usable(moments),
+                                    weights)
 
     def usable(self, moments: TaxonMoments) -> np.ndarray:
         """Taxa entering the fit: enough reads and a positive corrected variance."""
@@ -194,17 +203,57 @@ def taylor_fit(mean: np.ndarray, variance: np.ndarray, usable: np.ndarray,
     intercept, slope:
         Shape ``(R,)``; NaN where fewer than three taxa are usable or their means are equal.
     """
-    weight = np.where(usable, 1.0 if weights is None else weights, 0.0)
-    log_mean = np.log(np.where(usable, mean, 1.0))
-    log_variance = np.log(np.where(usable, variance, 1.0))
-    n_used = np.count_nonzero(usable, axis=1)
-    total = np.maximum(weight.sum(axis=1), np.finfo(float).tiny)
-    x_bar = (weight * log_mean).sum(axis=1) / total
-    y_bar = (weight * log_variance).sum(axis=1) / total
-    dx = log_mean - x_bar[:, None]
-    sxx = (weight * dx * dx).sum(axis=1)
-    sxy = (weight * dx * (log_variance - y_bar[:, None])).sum(axis=1)
-    defined = (n_used >= MIN_TAXA) & (sxx > 0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        slope = np.where(defined, sxy / sxx, np.nan)
-    return np.where(defined, y_bar - slope * x_bar, np.nan), slope
+    line = TaylorLine.through(mean, variance, usable, weights)
+    return line.intercept, line.slope
+
+
+def slope_standard_error(mean: np.ndarray, variance: np.ndarray, usable: np.ndarray,
+                         weights: np.ndarray | None = None) -> np.ndarray:
+    """Standard error of the :func:`taylor_fit` slope from its weighted residuals, ``(R,)``.
+
+    se^2 = sum_i w_i r_i^2 / ((n - 2) sum_i w_i (x_i - x_bar)^2), the usual weighted
+    least-squares estimate with weights known up to a common factor (e.g. Draper & Smith
+    1998, *Applied Regression Analysis*, 3rd ed.). NaN where the slope is.
+    """
+    return TaylorLine.through(mean, variance, usable, weights).slope_standard_error()
+
+
+@dataclass(frozen=True)
+class TaylorLine:
+    """The weighted least-squares line of log variance on log mean, per table."""
+
+    weight: np.ndarray
+    log_mean: np.ndarray
+    log_variance: np.ndarray
+    n_used: np.ndarray
+    sxx: np.ndarray
+    intercept: np.ndarray
+    slope: np.ndarray
+
+    @classmethod
+    def through(cls, mean: np.ndarray, variance: np.ndarray, usable: np.ndarray,
+                weights: np.ndarray | None = None) -> "TaylorLine":
+        """Fit the line over the usable taxa of each table (see :func:`taylor_fit`)."""
+        weight = np.where(usable, 1.0 if weights is None else weights, 0.0)
+        log_mean = np.log(np.where(usable, mean, 1.0))
+        log_variance = np.log(np.where(usable, variance, 1.0))
+        n_used = np.count_nonzero(usable, axis=1)
+        total = np.maximum(weight.sum(axis=1), np.finfo(float).tiny)
+        x_bar = (weight * log_mean).sum(axis=1) / total
+        y_bar = (weight * log_variance).sum(axis=1) / total
+        dx = log_mean - x_bar[:, None]
+        sxx = (weight * dx * dx).sum(axis=1)
+        sxy = (weight * dx * (log_variance - y_bar[:, None])).sum(axis=1)
+        defined = (n_used >= MIN_TAXA) & (sxx > 0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            slope = np.where(defined, sxy / sxx, np.nan)
+        intercept = np.where(defined, y_bar - slope * x_bar, np.nan)
+        return cls(weight, log_mean, log_variance, n_used, sxx, intercept, slope)
+
+    def slope_standard_error(self) -> np.ndarray:
+        """se of the slope from the weighted residuals, ``(R,)`` (see
+        :func:`slope_standard_error`)."""
+        residual = self.log_variance - self.intercept[:, None] - self.slope[:, None] * self.log_mean
+        squares = (self.weight * residual * residual).sum(axis=1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.sqrt(squares / ((self.n_used - 2) * self.sxx))

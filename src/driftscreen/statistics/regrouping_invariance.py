@@ -91,6 +91,7 @@ class RegroupingInvariance:
     alternative: ClassVar[Alternative] = "greater"
     marginal: ClassVar[bool] = False
     in_combination: ClassVar[bool] = True
+    studentised: ClassVar[bool] = False
 
     n_groupings: int = 200
     min_group_reads: float = 5.0

@@ -113,6 +113,7 @@ class StationaryDivergence:
     alternative: ClassVar[Alternative] = "greater"
     marginal: ClassVar[bool] = True
     in_combination: ClassVar[bool] = True
+    studentised: ClassVar[bool] = False
 
     max_classes: int = 6
     samples_per_class: int = 8

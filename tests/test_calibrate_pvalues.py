@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 
 from driftscreen.calibrate import bootstrap_pvalue, leave_one_out_pvalues
+from driftscreen.statistics.base import is_studentised
 from driftscreen.statistics.registry import STATISTIC_CLASSES
 
 
@@ -60,7 +61,8 @@ def test_studentised_leave_one_out_pvalues_are_uniform_under_exchangeability():
 
 
 def test_every_statistic_says_whether_it_is_studentised():
-    flags = {cls.name: cls.studentised for cls in STATISTIC_CLASSES}
+    flags = {cls.name: is_studentised(cls) for cls in STATISTIC_CLASSES}
     assert flags["fluctuation_scaling"] is True
     assert all(isinstance(flag, bool) for flag in flags.values())
-    assert all(hasattr(cls, "standard_error") for cls in STATISTIC_CLASSES if cls.studentised)
+    assert all(hasattr(cls, "standard_error") for cls in STATISTIC_CLASSES if flags[cls.name])
+    assert not is_studentised(object())

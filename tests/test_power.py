@@ -229,7 +229,7 @@ def test_power_at_the_neutral_limit_is_at_most_alpha(neutral_limit_run):
 
 @pytest.fixture(scope="module")
 def separated_run():
-    return power_curve(TINY_SERIES, "logistic", [0.001, 0.3], n_datasets=12, replicates=19,
+    return power_curve(TINY_SERIES, "logistic", [0.001, 0.3], n_datasets=24, replicates=19,
                        groupings=20, seed=2)
 
 
@@ -239,7 +239,7 @@ def test_power_increases_with_strength(separated_run):
     low, high = separated_run.interval()
     combined = separated_run.statistics.index("combined")
     assert high[0, combined] < low[1, combined]
-    assert separated_run.power[1, combined] >= 0.75  # 9 of 12: the intervals carry the test
+    assert separated_run.power[1, combined] >= 0.75  # 18 of 24: the intervals carry the test
     mde = separated_run.minimum_detectable()[0]
     assert 0.001 < mde < 0.3
 
@@ -257,7 +257,7 @@ def test_power_result_outputs(separated_run, tmp_path):
     report = separated_run.summary()
     assert max(len(line) for line in report.splitlines()) <= WIDTH
     assert "Minimum detectable strength" in report and "(sigma; each taxon" in report
-    assert "12 datasets per strength" in report
+    assert "24 datasets per strength" in report
 
 
 def test_results_do_not_depend_on_jobs_or_on_the_grid():

@@ -60,7 +60,7 @@ from driftscreen.results import (
     ParameterEstimate,
     StatisticResult,
 )
-from driftscreen.statistics.base import Statistic
+from driftscreen.statistics.base import Statistic, is_studentised
 from driftscreen.statistics.combination import harmonic_mean_pvalue
 from driftscreen.statistics.fluctuation_scaling import taylor_fit
 from driftscreen.statistics.registry import default_statistics
@@ -174,7 +174,7 @@ def compute_scales(statistics: tuple[Statistic, ...], counts: np.ndarray, design
     """Each table's standard error of every studentised statistic (1 for the others),
     shape ``(R, S)``; the same fresh generators as :func:`compute_statistics`."""
     columns = [stat.standard_error(counts, design, fit, seeds.generator(seeds.substream(stream, j)))
-               if stat.studentised else np.ones(counts.shape[0])
+               if is_studentised(stat) else np.ones(counts.shape[0])
                for j, stat in enumerate(statistics)]
     return np.column_stack(columns).astype(np.float64)
 
@@ -386,8 +386,9 @@ def calibrate_statistics(plan: CalibrationPlan, null: np.ndarray,
     observed_pvalues = np.full(len(plan.statistics), np.nan)
     for j, stat in enumerate(plan.statistics):
         column = null[:, j]
-        scales = null_scales[:, j] if stat.studentised else None
-        observed_scale = float(plan.observed_scales[j]) if stat.studentised else 1.0
+        studentised = is_studentised(stat)
+        scales = null_scales[:, j] if studentised else None
+        observed_scale = float(plan.observed_scales[j]) if studentised else 1.0
         finite = usable_replicates(column, scales)
         withheld = withheld_reason(stat, plan.model, plan.dataset.design, plan.settings.null)
         pvalue = np.nan if withheld else bootstrap_pvalue(plan.observed[j], column,

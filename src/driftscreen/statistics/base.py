@@ -42,7 +42,7 @@ class Statistic(Protocol):
         established on every kind of neutral data the validation study covers reports its
         p-value but stays out of the combination.
     studentised:
-        True if the statistic also gives each table's own standard error
+        Optional (absent means False). True if the statistic also gives each table's own standard error
         (``standard_error(counts, design, fit, rng)``, shape ``(R,)``), and the calibration
         measures the distance from the null median in those units, for the data and every
         replicate alike: the studentised bootstrap, whose p-values depend less on how far
@@ -56,7 +56,6 @@ class Statistic(Protocol):
     alternative: Alternative
     marginal: bool
     in_combination: bool
-    studentised: bool
 
     def compute(self, counts: np.ndarray, design: Design, fit: NullFit,
                 rng: np.random.Generator) -> np.ndarray:
@@ -68,3 +67,9 @@ class Statistic(Protocol):
         replicates) and return finite values or NaN where undefined.
         """
         ...
+
+
+def is_studentised(stat: Statistic) -> bool:
+    """True if ``stat`` is calibrated in units of its own standard error (see
+    :class:`Statistic`)."""
+    return bool(getattr(stat, "studentised", False))

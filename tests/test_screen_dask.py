@@ -54,4 +54,4 @@ def test_dask_backend_runs_the_chunks_on_the_cluster(tables, scheduler, tmp_path
     monkeypatch.setattr(calibrate, "run_chunk", run_chunk_on_worker)
     assert main(screen_args(tables, tmp_path / "res", "--backend", "dask",
                             "--scheduler", scheduler)) == 0
-    assert len(workers) == 3 and all(workers)
+    assert len(workers) >= 3 and all(workers)  # one chunk per dataset, more for influence

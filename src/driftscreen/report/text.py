@@ -420,7 +420,8 @@ STATISTIC_METHODS = {
     "fluctuation_scaling":
         "the exponent of Taylor's law between the sampling-corrected variance and the mean "
         "of taxon abundances, weighted by the precision of each taxon's variance (Taylor "
-        "1961, Nature 189:732)",
+        "1961, Nature 189:732), calibrated in units of each table's own standard error of "
+        "the exponent (studentised bootstrap)",
     "dispersion_heterogeneity":
         "the likelihood ratio of taxon-specific against common beta-binomial dispersion, "
         "with each taxon's mean profiled, per taxon and corrected for autocorrelation",

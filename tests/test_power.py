@@ -15,12 +15,12 @@ from scipy import stats
 from driftscreen import calibrate, commands, power
 from driftscreen.calibrate import CalibrationSettings
 from driftscreen.cli import main
-from driftscreen.commands import neutral_collection, write_collection
+from driftscreen.synthetic import neutral_collection, write_collection
 from driftscreen.niche import StochasticLogistic
 from driftscreen.power import (NicheAlternative, PowerDesign, PowerTask,
                                minimum_detectable_strength, power_curve, simulated_dataset,
                                wilson_interval)
-from driftscreen.report.text import WIDTH
+from driftscreen.report.format import WIDTH
 from driftscreen.store import SETTINGS_FILE, STORE_FOLDER
 from driftscreen.synthetic import DesignSpec, as_dataset
 
@@ -357,7 +357,7 @@ def test_detectable_line_describes_the_design_and_the_quick_run():
 
 def test_test_command_adds_the_line_only_when_not_rejected(monkeypatch):
     """The note is added after the test, before the report is rendered."""
-    real_test = calibrate.neutrality_test
+    real_test = calibrate.run_calibration
 
     def with_combined_pvalue(pvalue):
         def run(*args, **kwargs):
@@ -370,11 +370,11 @@ def test_test_command_adds_the_line_only_when_not_rejected(monkeypatch):
                         lambda dataset, settings, jobs: "With this design (stub), a line.")
     dataset = neutral_collection(1, DesignSpec(n_samples=15, interval=None, depth=900), 8,
                                  40.0, 0.3, seed=8, prefix="lake")[0]
-    monkeypatch.setattr(calibrate, "neutrality_test", with_combined_pvalue(0.5))
+    monkeypatch.setattr(calibrate, "run_calibration", with_combined_pvalue(0.5))
     report = commands.test_command(dataset, replicates=19, groupings=10, seed=0, jobs=1,
                                    detectable=True)
     assert "With this design (stub), a line." in report.split("Notes")[1]
-    monkeypatch.setattr(calibrate, "neutrality_test", with_combined_pvalue(0.05))
+    monkeypatch.setattr(calibrate, "run_calibration", with_combined_pvalue(0.05))
     report = commands.test_command(dataset, replicates=19, groupings=10, seed=0, jobs=1,
                                    detectable=True)
     assert power.DETECTABLE_PREFIX not in report

@@ -61,10 +61,9 @@ from driftscreen.results import (
 from driftscreen.statistics.base import Statistic
 from driftscreen.statistics.combination import harmonic_mean_pvalue
 from driftscreen.statistics.fluctuation_scaling import taylor_fit
-from driftscreen.statistics.registry import default_statistics
+from driftscreen.statistics.registry import COMBINED, default_statistics
 from driftscreen.taxon_scan import TaxonScan, scan_table, taxon_scan_for
 
-COMBINED = "combined"
 #: Neutral replicates in the pilot that measures the bias of the theta and rate estimators.
 PILOT_REPLICATES = 64
 #: Largest factor by which the bias correction may move an estimate.
@@ -603,13 +602,32 @@ def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int =
     InputError
         A design too small to analyse (:func:`driftscreen.limits.unanalysable_reason`).
     """
-    check_analysable(dataset)
-    JOBS.check("jobs", jobs)
+    check_test_input(dataset, jobs)
     settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed,
                                    null=NullOptions(noise=noise, start=start))
+    return run_calibration(dataset, settings, jobs=jobs, statistics=statistics)
+
+
+def check_test_input(dataset: Dataset, jobs: int) -> None:
+    """The input check of a test of one dataset: an analysable design, ``jobs`` >= 1.
+
+    Raises
+    ------
+    InputError
+        A design too small to analyse (:func:`driftscreen.limits.unanalysable_reason`).
+    ValueError
+        ``jobs`` out of :data:`driftscreen.limits.JOBS`.
+    """
+    check_analysable(dataset)
+    JOBS.check("jobs", jobs)
+
+
+def run_calibration(dataset: Dataset, settings: CalibrationSettings, *, jobs: int = 1,
+                    statistics: tuple[Statistic, ...] | None = None) -> NeutralityResult:
+    """The calibrated test of a checked dataset (:func:`neutrality_test` without its input
+    check); ``jobs`` is the ``n_jobs`` of the joblib backend in use."""
     plan = plan_calibration(dataset, settings, statistics)
-    outputs = run_tasks(plan.tasks, jobs)
-    return assemble(plan, outputs)
+    return assemble(plan, run_tasks(plan.tasks, jobs))
 
 
 def run_tasks(tasks: tuple[ChunkTask, ...], jobs: int) -> list[ChunkOutput]:

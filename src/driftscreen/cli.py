@@ -13,12 +13,19 @@ import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
 
-from driftscreen import __version__
+from driftscreen.commands import power_command, screen_command, simulate_command, test_command
+from driftscreen.dataset import Dataset
+from driftscreen.demo import run_demo as demo
 from driftscreen.errors import InputError
+from driftscreen.intake import read_datasets
 from driftscreen.limits import (DEPTH_SPREAD, GROUPINGS, INTERVAL, JOBS, MAX_READS,
-                               MAX_READS_TEXT, READ_PRECISION, READS, REPLICATES, SEED, THETA,
-                               IntegerRange, NumberRange)
+                               MAX_READS_TEXT, MIN_TAXA, READ_PRECISION, READS, REPLICATES, SEED,
+                               THETA, IntegerRange, NumberRange, check_analysable,
+                               minimum_samples)
 from driftscreen.neutral.model import START_CHOICES, NullOptions
+from driftscreen.power import PowerDesign
+from driftscreen.synthetic import check_design_span
+from driftscreen.version import __version__
 
 EXIT_INPUT = 2
 
@@ -175,12 +182,26 @@ def intake_options(args: argparse.Namespace) -> dict:
                 lineage=args.lineage, rank=args.rank, taxon_map=args.taxon_map)
 
 
-def read_input(args: argparse.Namespace) -> list:
+def read_input(args: argparse.Namespace) -> list[Dataset]:
     """Every dataset of the table, however small: the analysis applies the size limits."""
-    from driftscreen.intake import read_datasets
-
     return read_datasets(args.counts, args.metadata, **intake_options(args), min_samples=1,
                          min_taxa=1)
+
+
+def choose_dataset(datasets: Sequence[Dataset], name: str | None, source: str) -> Dataset:
+    """The one dataset `driftscreen test` works on."""
+    if name is None:
+        if len(datasets) == 1:
+            return datasets[0]
+        listed = ", ".join(d.name for d in datasets[:3]) + (", ..." if len(datasets) > 3 else "")
+        raise InputError(f"the table holds {len(datasets)} datasets ({listed})",
+                         file=source, fix="choose one with --dataset NAME, or use "
+                                          "`driftscreen screen` to test them all")
+    for dataset in datasets:
+        if dataset.name == name:
+            return dataset
+    raise InputError(f"no dataset named '{name}'", file=source, place="option --dataset",
+                     fix="use one of: " + ", ".join(d.name for d in datasets[:10]))
 
 
 def add_calibration_options(parser: argparse.ArgumentParser, replicates: int = 999,
@@ -262,8 +283,6 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
 
 
 def run_simulate(args: argparse.Namespace) -> int:
-    from driftscreen.commands import simulate_command
-
     if args.strength is not None and args.model == "neutral":
         raise InputError("a strength applies only to a niche model", place="option --strength",
                          fix="add --model logistic or --model lotka-volterra, or drop --strength")
@@ -300,8 +319,6 @@ def add_test(sub: argparse._SubParsersAction) -> None:
 
 
 def run_test(args: argparse.Namespace) -> int:
-    from driftscreen.commands import choose_dataset, test_command
-
     dataset = choose_dataset(read_input(args), args.dataset, args.counts)
     report = test_command(dataset, replicates=args.replicates, groupings=args.groupings,
                           seed=args.seed, jobs=args.jobs, output=args.output,
@@ -354,8 +371,6 @@ def screen_figures_folder(args: argparse.Namespace) -> Path | None:
 
 
 def run_screen(args: argparse.Namespace) -> int:
-    from driftscreen.commands import screen_command
-
     try:
         paths = screen_command(
             args.counts, args.metadata, out=Path(args.out), intake=intake_options(args),
@@ -436,9 +451,57 @@ def add_power(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(handler=run_power)
 
 
-def run_power(args: argparse.Namespace) -> int:
-    from driftscreen.commands import choose_dataset, power_command, power_design
+def power_design(dataset: Dataset | None, *, n_taxa: int | None, n_samples: int | None,
+                 interval: float | None, irregular: bool, snapshot: bool,
+                 depth: float | None, depth_spread: float | None) -> PowerDesign:
+    """The design of `driftscreen power`: a dataset's, or one from the design options.
 
+    Raises
+    ------
+    InputError
+        Both or neither given, an incomplete or contradictory set of design options, or
+        a design too small to analyse.
+    """
+    given = {"--taxa": n_taxa, "--samples": n_samples, "--interval": interval,
+             "--irregular": irregular or None, "--snapshot": snapshot or None,
+             "--depth-spread": depth_spread}
+    named = [option for option, value in given.items() if value is not None]
+    if dataset is not None:
+        if named:
+            raise InputError("design options cannot be combined with a counts table",
+                             file=f"option {named[0]}",
+                             fix="give either COUNTS (and intake options) or the design "
+                                 "options --taxa, --samples, --interval, --depth")
+        check_analysable(dataset, fix="choose another dataset with --dataset")
+        return PowerDesign.from_dataset(dataset)
+    missing = [option for option, value in (("--taxa", n_taxa), ("--samples", n_samples),
+                                            ("--depth", depth)) if value is None]
+    if interval is None and not snapshot:
+        missing.append("--interval (or --snapshot)")
+    if missing:
+        raise InputError("no design given: missing " + ", ".join(missing),
+                         file="command power",
+                         fix="give a counts table (COUNTS --metadata FILE ...) or all of "
+                             "--taxa K --samples T --interval D --depth N")
+    if snapshot and (interval is not None or irregular):
+        option = "--interval" if interval is not None else "--irregular"
+        raise InputError("a snapshot design has no sampling times", file=f"option {option}",
+                         fix="drop it, or drop --snapshot")
+    minimum = minimum_samples(time_series=not snapshot)
+    if n_samples < minimum:
+        raise InputError(f"{n_samples} samples are too few to analyse",
+                         file="option --samples", fix=f"give at least {minimum}")
+    if n_taxa < MIN_TAXA:
+        raise InputError(f"{n_taxa} taxa are too few to analyse", file="option --taxa",
+                         fix=f"give at least {MIN_TAXA}")
+    check_design_span(n_samples, None if snapshot else interval)
+    return PowerDesign.from_numbers(n_taxa=n_taxa, n_samples=n_samples,
+                                    interval=None if snapshot else interval,
+                                    irregular=irregular, depth=max(int(round(depth)), 1),
+                                    depth_spread=depth_spread or 0.0)
+
+
+def run_power(args: argparse.Namespace) -> int:
     dataset = None
     if args.counts is not None:
         dataset = choose_dataset(read_input(args), args.dataset, args.counts)
@@ -477,8 +540,6 @@ def add_demo(sub: argparse._SubParsersAction) -> None:
 
 
 def run_demo(args: argparse.Namespace) -> int:
-    from driftscreen.demo import run_demo as demo
-
     sys.stdout.write(demo(Path(args.out), replicates=args.replicates, jobs=args.jobs,
                           messages=sys.stderr))
     return 0

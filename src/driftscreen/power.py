@@ -17,7 +17,6 @@ the number of jobs nor on the other strengths of the grid.
 from __future__ import annotations
 
 import math
-import time
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from typing import TextIO
@@ -33,8 +32,7 @@ from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
 from driftscreen.limits import unanalysable_reason
 from driftscreen.niche import LotkaVolterraParameters, NoisyLotkaVolterra, StochasticLogistic
-from driftscreen.report.text import duration_text, number
-from driftscreen.results import NeutralityResult
+from driftscreen.progress import PowerProgress
 from driftscreen.statistics.registry import default_statistics
 from driftscreen.synthetic import DesignSpec, as_dataset
 
@@ -56,8 +54,6 @@ QUICK_DATASETS = 12
 QUICK_REPLICATES = 99
 #: Start of every detectable line (used to recognise a result that already has one).
 DETECTABLE_PREFIX = "With this design ("
-#: Seconds between two progress lines.
-PROGRESS_EVERY = 5.0
 
 
 # ----------------------------------------------------------------------------- binomial interval
@@ -110,11 +106,6 @@ def minimum_detectable_strength(strengths: Sequence[float], power: Sequence[floa
 
 
 # ----------------------------------------------------------------------------- the design
-def days(value: float) -> str:
-    """``1 day``, ``2.5 days``."""
-    return f"{value:g} day" + ("" if value == 1 else "s")
-
-
 @dataclass(frozen=True)
 class PowerDesign:
     """The design to plan for: taxa, sample times and depths, optionally an abundance profile.
@@ -194,39 +185,6 @@ class PowerDesign:
         kind = "samples" if self.is_time_series else "replicate communities"
         return (f"{self.n_taxa} taxa, {self.n_samples} {kind}, median depth "
                 f"{self.median_depth:,.0f} reads")
-
-    def describe(self) -> list[tuple[str, str]]:
-        """Design, taxa, depths and abundances as (key, value) pairs for the report."""
-        if self.fixed is not None:
-            design = self.fixed
-            layout = (f"time series, {self.n_samples} samples over "
-                      f"{number(float(design.times[-1] - design.times[0]))} days"
-                      if design.is_time_series else
-                      f"snapshot, {self.n_samples} replicate communities")
-            depths = (f"min {design.depths.min():,}, median {self.median_depth:,.0f}, "
-                      f"max {design.depths.max():,}")
-            pairs = [("Design", f"{layout}, as in dataset '{self.source}'")]
-        else:
-            spec = self.spec
-            if spec.interval is None:
-                layout = f"snapshot, {spec.n_samples} replicate communities"
-            elif spec.irregular:
-                layout = (f"time series, {spec.n_samples} samples, gamma-distributed gaps "
-                          f"with mean {days(spec.interval)} (drawn anew per dataset)")
-            else:
-                layout = (f"time series, {spec.n_samples} samples, one every "
-                          f"{days(spec.interval)}")
-            depths = (f"median {spec.depth:,}, log-sd {spec.depth_spread:g} (drawn anew per "
-                      "dataset)" if spec.depth_spread > 0 else f"{spec.depth:,} in every sample")
-            pairs = [("Design", layout)]
-        return pairs + [("Taxa", str(self.n_taxa)), ("Depth (reads)", depths)]
-
-    def abundance_text(self, alternative: NicheAlternative) -> str:
-        """Where the carrying capacities of the niche model come from."""
-        if self.profile is not None:
-            return "pooled relative abundances of the dataset (carrying capacities)"
-        return (f"carrying capacities log-uniform over {alternative.spread_decades:g} "
-                "orders of magnitude, drawn per dataset (model default)")
 
 
 # ----------------------------------------------------------------------------- alternatives
@@ -350,26 +308,6 @@ class NicheAlternative:
         if profile is None:
             return NoisyLotkaVolterra(n_taxa, **options)
         return ProfiledLotkaVolterra(n_taxa, **options, profile=tuple(profile))
-
-    def description(self) -> str:
-        """What the alternative is and what its strength means, for the report."""
-        if self.name == "logistic":
-            return ("independent stochastic logistic taxa (Grilli 2020, Nat. Commun. "
-                    "11:4743), generation time "
-                    f"{days(self.timescale)}. strength = sigma, the environmental noise: each "
-                    "taxon fluctuates around its carrying capacity with a Gamma law of squared "
-                    "coefficient of variation sigma / (2 - sigma); sigma = 0 is a constant "
-                    "community, the neutral limit (theta -> infinity).")
-        text = ("competitive Lotka-Volterra community (Stein et al. 2013, PLoS Comput. "
-                f"Biol. 9:e1003388), generation time {days(self.timescale)}, environmental "
-                f"noise {self.noise:g}. strength = mean competition coefficient C_ij: the "
-                "fraction by which one other taxon at its carrying capacity reduces a "
-                "taxon's growth")
-        if self.noise == 0.0:
-            return text + ("; without noise, strength 0 is a constant community, the "
-                           "neutral limit (theta -> infinity).")
-        return text + (f"; strength 0 is independent logistic taxa with sigma = "
-                       f"{self.noise:g} (not neutral).")
 
 
 def as_alternative(alternative: str | NicheAlternative) -> NicheAlternative:
@@ -586,27 +524,6 @@ class PowerResult:
 
 
 # ----------------------------------------------------------------------------- running
-class PowerProgress:
-    """``k/n datasets tested, elapsed, about ... left`` on a stream, at most every few seconds."""
-
-    def __init__(self, total: int, stream: TextIO | None) -> None:
-        self.total, self.stream = total, stream
-        self.done = 0
-        self.start = time.monotonic()
-        self.last_line = -math.inf
-
-    def dataset_finished(self) -> None:
-        self.done += 1
-        now = time.monotonic()
-        if self.stream is None or (now - self.last_line < PROGRESS_EVERY
-                                   and self.done < self.total):
-            return
-        self.last_line = now
-        elapsed = now - self.start
-        line = f"{self.done}/{self.total} datasets tested, {duration_text(elapsed)} elapsed"
-        if self.done < self.total:
-            line += f", about {duration_text(elapsed * (self.total / self.done - 1))} left"
-        print(f"driftscreen: power: {line}", file=self.stream, flush=True)
 
 
 def power_curve(design: PowerDesign, alternative: str | NicheAlternative = "logistic",
@@ -726,16 +643,6 @@ def detectable_settings(alternative: str = "logistic") -> str:
     grid = ",".join(f"{s:g}" for s in DEFAULT_STRENGTHS[alternative])
     return (f"{alternative} alternative, {QUICK_DATASETS} datasets per strength, B = "
             f"{QUICK_REPLICATES}, alpha 0.05, {TARGET_POWER:.0%} power, bisection over {grid}")
-
-
-def with_detectable_line(result: NeutralityResult, line: str) -> NeutralityResult:
-    """``result`` with ``line`` appended to its notes (printed under "Notes")."""
-    return replace(result, notes=tuple(result.notes) + (line,))
-
-
-def has_detectable_line(result: NeutralityResult) -> bool:
-    """True if ``result`` already carries a line of :func:`detectable_line`."""
-    return any(note.startswith(DETECTABLE_PREFIX) for note in result.notes)
 
 
 __all__ = ["ALTERNATIVES", "NicheAlternative", "PowerDesign", "PowerResult", "detectable_line",

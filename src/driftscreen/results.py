@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from driftscreen.neutral.model import NeutralModel
+from driftscreen.statistics.registry import COMBINED
 
 
 @dataclass(frozen=True)
@@ -171,7 +172,7 @@ class NeutralityResult:
     @property
     def pvalue(self) -> float:
         """The combined p-value (calibrated harmonic mean p-value of all statistics)."""
-        return self.statistics["combined"].pvalue
+        return self.statistics[COMBINED].pvalue
 
     @property
     def pvalue_resolution(self) -> float:

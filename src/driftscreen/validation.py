@@ -54,7 +54,7 @@ import pandas as pd
 from joblib import Parallel, delayed
 from scipy.stats import binomtest, kstest
 
-from driftscreen import __version__, seeds
+from driftscreen import seeds
 from driftscreen.calibrate import correlation_times, neutrality_test
 from driftscreen.cli import Parser
 from driftscreen.dataset import Dataset, Design
@@ -73,6 +73,7 @@ from driftscreen.niche import EnvironmentalTracking, NoisyLotkaVolterra, Stochas
 from driftscreen.results import NeutralityResult
 from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
 from driftscreen.taxon_scan import LEVEL as TAXON_LEVEL
+from driftscreen.version import __version__
 
 #: Individuals in the stationary collection's discrete Wright-Fisher community (at least).
 WRIGHT_FISHER_SIZE = 2000

@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
+import inspect
 import math
 import os
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 
@@ -376,3 +377,15 @@ def remainder_notes(table: Table, members: np.ndarray) -> list[str]:
         return []
     return [f"pooled the unlisted remainder of each sample as taxon '{OTHER}' "
             f"(mean {share:.1%} of reads)"]
+
+
+def intake_defaults() -> dict[str, Any]:
+    """Default intake options of :func:`driftscreen.intake.read_datasets` (size limits aside).
+
+    Filling them in makes the settings fingerprint the same whether an option was given
+    at its default value or left out.
+    """
+    return {name: parameter.default
+            for name, parameter in inspect.signature(read_datasets).parameters.items()
+            if parameter.kind is inspect.Parameter.KEYWORD_ONLY
+            and name not in ("min_samples", "min_taxa")}

@@ -196,3 +196,10 @@ def read_theta(theta: np.ndarray | float, noise: np.ndarray | float) -> np.ndarr
     """
     v = 1.0 / (1.0 + np.asarray(theta, dtype=np.float64))
     return 1.0 / (v + (1.0 - v) * np.asarray(noise, dtype=np.float64)) - 1.0
+
+
+def single_fit(model: NeutralModel) -> NullFit:
+    """A batch-of-one NullFit holding ``model``."""
+    rate = None if model.rate is None else np.array([model.rate])
+    return NullFit(p=model.p[None], theta=np.array([model.theta]), rate=rate,
+                   clipped=np.array([False]), noise=np.array([model.noise]))

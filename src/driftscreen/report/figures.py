@@ -40,13 +40,15 @@ import pandas as pd
 
 from driftscreen.errors import InputError
 from driftscreen.files import atomic_write_bytes
-from driftscreen.report.text import number, pvalue_text, volatility_classes
-from driftscreen.results import NeutralityResult, StatisticResult
+from driftscreen.report.format import number, pvalue_text
+from driftscreen.report.text import volatility_classes
 
 if TYPE_CHECKING:
     from matplotlib.axes import Axes
     from matplotlib.axis import Axis
     from matplotlib.figure import Figure
+
+    from driftscreen.results import NeutralityResult, StatisticResult
 
 #: What each statistic's value is, for the axis of its null distribution.
 STATISTIC_AXES = {

@@ -17,16 +17,18 @@ from __future__ import annotations
 import json
 import math
 from collections.abc import Mapping, Sequence
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from driftscreen.results import NeutralityResult
-from driftscreen.screen import DatasetOutcome, ScreenResult
-from driftscreen.calibrate import COMBINED
 from driftscreen.serialize import (float_to_json, floats_to_json, influence_to_dict,
                                    summary_to_dict, table_to_dict)
+from driftscreen.statistics.registry import COMBINED
 from driftscreen.taxon_scan import ACROSS_COLUMNS, across_datasets
+
+if TYPE_CHECKING:
+    from driftscreen.results import NeutralityResult
+    from driftscreen.screen import DatasetOutcome, ScreenResult
 
 RESULTS_COLUMNS = ("dataset", "statistic", "alternative", "observed", "null_mean", "null_sd",
                    "null_median", "effect_size", "ratio_to_median", "p_value", "q_value",

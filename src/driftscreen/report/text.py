@@ -7,84 +7,27 @@ with a fixed number of significant digits, and nothing depends on the terminal.
 from __future__ import annotations
 
 import math
-import textwrap
 from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 
-from driftscreen import __version__
 from driftscreen.calibrate import MIN_CORRELATION_TIMES
 from driftscreen.influence import CANDIDATES, LEVEL
 from driftscreen.neutral.model import NullOptions
-from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
-                                 StatisticResult)
+from driftscreen.progress import duration_text
+from driftscreen.report.format import (ALPHA, WIDTH, bullet_list, heading, key_values, number,
+                                       percent, pvalue_text, qvalue_text, sentence, shorten,
+                                       table, taxon_table, verdict_word, wrap, wrapped_pairs)
+from driftscreen.report.taxa import TAXA_LEGEND, TAXA_METHODS, screen_taxa_lines, taxa_lines
+from driftscreen.statistics.registry import COMBINED
+from driftscreen.version import __version__
 
 if TYPE_CHECKING:
+    from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
+                                     StatisticResult)
     from driftscreen.screen import ScreenResult
-
-WIDTH = 78
-ALPHA = 0.05
-
-
-def number(value: float, digits: int = 4) -> str:
-    """A number in at most ``digits`` significant digits; '-' for missing."""
-    if value is None or not math.isfinite(value):
-        return "-"
-    if value == 0:
-        return "0"
-    magnitude = abs(value)
-    if magnitude >= 1e6 or magnitude < 1e-3:
-        return f"{value:.{digits - 1}e}"
-    return f"{value:.{digits}g}"
-
-
-def pvalue_text(pvalue: float, replicates: int) -> str:
-    """A p-value; at the resolution limit it is shown as '<= 1/(B+1)'."""
-    if pvalue is None or not math.isfinite(pvalue):
-        return "-"
-    floor = 1.0 / (replicates + 1)
-    if pvalue <= floor * (1 + 1e-9):
-        return f"<={floor:.2g}"
-    return f"{pvalue:.3f}" if pvalue >= 0.001 else f"{pvalue:.1e}"
-
-
-def table(headers: Sequence[str], rows: Sequence[Sequence[str]],
-          align: str | None = None) -> list[str]:
-    """Aligned columns; ``align`` is one letter per column, 'l' or 'r' (default: l then r).
-
-    Columns are two spaces apart, or one when two would make the table wider than WIDTH.
-    """
-    align = align or "l" + "r" * (len(headers) - 1)
-    widths = [max(len(str(cell)) for cell in column) for column in zip(headers, *rows)]
-    gap = "  " if sum(widths) + 2 * (len(widths) - 1) <= WIDTH else " "
-
-    def line(cells: Sequence[str]) -> str:
-        return gap.join(str(c).ljust(w) if a == "l" else str(c).rjust(w)
-                        for c, w, a in zip(cells, widths, align)).rstrip()
-
-    return [line(headers), line(["-" * w for w in widths])] + [line(row) for row in rows]
-
-
-def heading(title: str, underline: str = "-") -> list[str]:
-    return [title, underline * min(WIDTH, max(len(title), 20))]
-
-
-def wrap(text: str, indent: str = "") -> list[str]:
-    return textwrap.wrap(text, WIDTH, initial_indent=indent, subsequent_indent=indent) or [""]
-
-
-def bullet_list(items: Sequence[str]) -> list[str]:
-    lines: list[str] = []
-    for item in items:
-        lines += textwrap.wrap(item, WIDTH, initial_indent="  - ", subsequent_indent="    ")
-    return lines
-
-
-def key_values(pairs: Sequence[tuple[str, str]]) -> list[str]:
-    width = max(len(k) for k, _ in pairs)
-    return [f"{k.ljust(width)}  {v}" for k, v in pairs]
 
 
 def parameter_rows(parameters: dict[str, ParameterEstimate]) -> list[list[str]]:
@@ -105,12 +48,12 @@ def statistic_rows(statistics: dict[str, StatisticResult], replicates: int) -> l
 
 def verdict(result: NeutralityResult, alpha: float = ALPHA) -> str:
     """One sentence a reader can quote: rejected or not, by the combined test."""
-    combined = result.statistics["combined"]
+    combined = result.statistics[COMBINED]
     if not math.isfinite(combined.pvalue):
         return "No verdict: no statistic could be computed for this dataset."
     p_text = pvalue_text(combined.pvalue, result.replicates)
     if combined.pvalue <= alpha:
-        strongest = max((s for k, s in result.statistics.items() if k != "combined"
+        strongest = max((s for k, s in result.statistics.items() if k != COMBINED
                          and math.isfinite(s.effect_size)),
                         key=lambda s: abs(s.effect_size), default=None)
         extra = (f"; the largest departure is {strongest.name} "
@@ -180,48 +123,6 @@ BLOCK_COLUMNS = {
     "dispersion_heterogeneity": ("taxon", "p", "theta_taxon", "theta_common", "at_grid_edge",
                                  "lr_contribution"),
 }
-
-
-def percent(share: float) -> str:
-    """A share in [0, 1] as a whole percentage; '<1%' and '>99%' near but not at 0 and 1."""
-    if not math.isfinite(share):
-        return "-"
-    if 0 < share < 0.005:
-        return "<1%"
-    if 0.995 <= share < 1:
-        return ">99%"
-    return f"{100 * share:.0f}%"
-
-
-def shorten_taxon(name: str, width: int) -> str:
-    """``name`` cut in the middle to ``width`` characters, marked '~'.
-
-    Start and end both stay: lineages and ids differ mostly at their ends
-    ('...;Lachnospiraceae;genus_12'), names at their start.
-    """
-    if len(name) <= width:
-        return name
-    head = (width - 1) // 3
-    return name[:head] + "~" + name[len(name) - (width - 1 - head):]
-
-
-def taxon_cells(labels: Sequence[str], members: Sequence[int], width: int) -> list[str]:
-    """Taxon labels cut to ``width``, keeping a pool's ' +N rare' suffix whole."""
-    cells = []
-    for label, count in zip(labels, members):
-        suffix = f" +{count - 1} rare" if count > 1 and label.endswith(" rare") else ""
-        head = label[:len(label) - len(suffix)]
-        cells.append(shorten_taxon(head, max(width - len(suffix), 4)) + suffix)
-    return cells
-
-
-def taxon_table(headers: Sequence[str], labels: Sequence[str], members: Sequence[int],
-                rows: Sequence[list[str]], align: str) -> list[str]:
-    """:func:`table` whose first column, taxon labels, is cut so that lines fit in WIDTH."""
-    others = sum(max([len(h)] + [len(r[c]) for r in rows]) for c, h in enumerate(headers[1:]))
-    width = max(len(headers[0]), WIDTH - others - 2 * (len(headers) - 1))
-    cells = taxon_cells(labels, members, width)
-    return table(headers, [[cell] + list(row) for cell, row in zip(cells, rows)], align)
 
 
 def stationary_block(diagnosis: pd.DataFrame) -> list[str]:
@@ -377,8 +278,6 @@ def dataset_section(result: NeutralityResult, legend: bool = True) -> list[str]:
     diagnostics = diagnostics_lines(result, legend)
     if diagnostics:
         lines += [""] + diagnostics
-    from driftscreen.report.taxa import taxa_lines
-
     taxa = taxa_lines(result, legend)
     if taxa:
         lines += [""] + taxa
@@ -438,40 +337,6 @@ INFLUENCE_METHODS = (
     "tested again without it with the same settings. ")
 
 
-def duration_text(seconds: float) -> str:
-    """``1h02m03s``, ``4m05s`` or ``7s``."""
-    seconds = int(round(max(seconds, 0.0)))
-    hours, rest = divmod(seconds, 3600)
-    minutes, secs = divmod(rest, 60)
-    if hours:
-        return f"{hours}h{minutes:02d}m{secs:02d}s"
-    return f"{minutes}m{secs:02d}s" if minutes else f"{secs}s"
-
-
-def qvalue_text(qvalue: float) -> str:
-    """A q-value in three decimals (scientific below 0.001); '-' when missing."""
-    if qvalue is None or not math.isfinite(qvalue):
-        return "-"
-    return f"{qvalue:.3f}" if qvalue >= 0.001 else f"{qvalue:.1e}"
-
-
-def verdict_word(qvalue: float, alpha: float = ALPHA) -> str:
-    """The screen's verdict on neutrality from the combined q-value."""
-    if qvalue is None or not math.isfinite(qvalue):
-        return "not tested"
-    return "rejected" if qvalue <= alpha else "not rejected"
-
-
-def wrapped_pairs(pairs: Sequence[tuple[str, str]]) -> list[str]:
-    """Key-value lines whose long values wrap under themselves."""
-    width = max(len(k) for k, _ in pairs)
-    lines: list[str] = []
-    for key, value in pairs:
-        lines += textwrap.wrap(value, WIDTH, initial_indent=f"{key.ljust(width)}  ",
-                               subsequent_indent=" " * (width + 2)) or [key]
-    return lines
-
-
 def intake_text(intake: Mapping[str, Any]) -> str:
     """The intake options that were given (not at their defaults), as options."""
     given = []
@@ -484,11 +349,11 @@ def intake_text(intake: Mapping[str, Any]) -> str:
 
 
 def combined_qvalue(run: ScreenResult, index: int) -> float:
-    return run.qvalue(index, "combined")
+    return run.qvalue(index, COMBINED)
 
 
 def n_tested(run: ScreenResult) -> int:
-    values = run.qvalues.get("combined")
+    values = run.qvalues.get(COMBINED)
     return 0 if values is None else int(sum(math.isfinite(v) for v in values))
 
 
@@ -531,11 +396,6 @@ def summary_row(run: ScreenResult, index: int) -> list[str]:
             qvalue_text(q), verdict_word(q)]
 
 
-def shorten(text: str, width: int) -> str:
-    """``text`` cut to ``width`` characters, a cut marked with '~'."""
-    return text if len(text) <= width else text[:max(width - 1, 1)] + "~"
-
-
 def summary_table(run: ScreenResult) -> list[str]:
     """Datasets sorted by combined q-value, then p-value (untested last); names cut to fit."""
     headers = ["#", "dataset", "samples", "taxa", "theta", "rate", "p", "q", "verdict"]
@@ -543,7 +403,7 @@ def summary_table(run: ScreenResult) -> list[str]:
     def by_qvalue(index: int) -> tuple[bool, float, float, str]:
         q, outcome = combined_qvalue(run, index), run.outcomes[index]
         tested = math.isfinite(q)
-        p = outcome.pvalue("combined") if tested else 0.0
+        p = outcome.pvalue(COMBINED) if tested else 0.0
         return (not tested, q if tested else 0.0, p, outcome.name)
 
     rows = [summary_row(run, i) for i in sorted(range(len(run.outcomes)), key=by_qvalue)]
@@ -574,12 +434,6 @@ def summary_lines(run: ScreenResult) -> list[str]:
     return lines + wrap(legend)
 
 
-def sentence(text: str) -> str:
-    """``text`` with a capital first letter and a full stop."""
-    text = text.strip()
-    return text[:1].upper() + text[1:] + ("" if text.endswith(".") else ".")
-
-
 def outcome_section(run: ScreenResult, index: int) -> list[str]:
     """One dataset's section: the single-dataset block plus its q-value, or why not."""
     outcome = run.outcomes[index]
@@ -604,7 +458,7 @@ def statistics_used(run: ScreenResult) -> list[str]:
     names: list[str] = []
     for outcome in run.outcomes:
         if outcome.result is not None:
-            names += [n for n in outcome.result.statistics if n != "combined" and n not in names]
+            names += [n for n in outcome.result.statistics if n != COMBINED and n not in names]
     return names
 
 
@@ -641,8 +495,6 @@ def any_taxon_scan(run: ScreenResult) -> bool:
 
 def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
     """A paragraph for a manuscript, with B, R, the seed and the version actually used."""
-    from driftscreen.report.taxa import TAXA_METHODS
-
     settings = run.settings
     described = [STATISTIC_METHODS.get(name, name).format(groupings=settings.groupings)
                  for name in statistics_used(run)]
@@ -701,8 +553,6 @@ def screen_report(run: ScreenResult, provenance: Mapping[str, Any], *, run_secon
     lines = screen_header(run, provenance, run_seconds, date) + [""] + summary_lines(run)
     for index in range(len(run.outcomes)):
         lines += [""] + outcome_section(run, index)
-    from driftscreen.report.taxa import TAXA_LEGEND, screen_taxa_lines
-
     across = screen_taxa_lines(run)
     if across:
         lines += [""] + across

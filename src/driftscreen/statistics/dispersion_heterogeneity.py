@@ -61,7 +61,7 @@ rate itself.)
 Computation. theta = c theta_0 with a per-table pilot theta_0: the pooled,
 sampling-corrected moment estimate with the samples treated as independent (around the
 precision-weighted composition, see
-:func:`driftscreen.statistics.stationary_divergence.precision_weighted_composition`),
+:func:`driftscreen.statistics.composition.precision_weighted_composition`),
 which is what the composite likelihood itself estimates, autocorrelation included. The
 profile max_{p_i} l_i is evaluated on the grid c = 2^-s, ..., 2^s (s = ``log2_span``;
 theta_i is bounded to that range around the pilot). At fixed theta, l_i is concave in p_i
@@ -93,12 +93,9 @@ import pandas as pd
 from scipy import special
 
 from driftscreen.dataset import Design
-from driftscreen.neutral.model import NeutralModel, NullFit
+from driftscreen.neutral.model import NeutralModel, NullFit, single_fit
 from driftscreen.statistics.base import Alternative
-from driftscreen.statistics.stationary_divergence import (
-    precision_weighted_composition,
-    single_fit,
-)
+from driftscreen.statistics.composition import precision_weighted_composition
 
 #: Bounds of the pilot v = 1/(1 + theta_0).
 PILOT_V_RANGE = (1e-7, 1.0 - 1e-7)

@@ -9,12 +9,15 @@ from driftscreen.statistics.fluctuation_scaling import FluctuationScaling
 from driftscreen.statistics.regrouping_invariance import RegroupingInvariance
 from driftscreen.statistics.stationary_divergence import StationaryDivergence
 
+#: Name of the calibrated combination of the statistics' p-values (see
+#: :func:`driftscreen.calibrate.combine`); it is not computed from counts.
+COMBINED = "combined"
 #: Every statistic class, in output order.
 STATISTIC_CLASSES = (StationaryDivergence, RegroupingInvariance, FluctuationScaling,
                      DispersionHeterogeneity)
 #: Names of all reported statistics; "combined" (the harmonic mean p-value of the others'
 #: p-values) comes last.
-STATISTIC_NAMES: tuple[str, ...] = tuple(cls.name for cls in STATISTIC_CLASSES) + ("combined",)
+STATISTIC_NAMES: tuple[str, ...] = tuple(cls.name for cls in STATISTIC_CLASSES) + (COMBINED,)
 
 
 def default_statistics(*, time_series: bool, n_groupings: int = 200) -> list[Statistic]:

@@ -59,9 +59,9 @@ import pandas as pd
 from scipy import special
 
 from driftscreen.dataset import Design
-from driftscreen.neutral.model import NeutralModel, NullFit, sampling_variance_factor
+from driftscreen.neutral.model import (NeutralModel, NullFit, sampling_variance_factor,
+                                       single_fit)
 from driftscreen.statistics.base import Alternative
-from driftscreen.statistics.stationary_divergence import single_fit
 
 
 @dataclass(frozen=True)

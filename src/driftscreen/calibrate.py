@@ -35,8 +35,7 @@ from joblib import Parallel, delayed
 
 from driftscreen import seeds
 from driftscreen.dataset import Dataset, Design
-from driftscreen.limits import (GROUPINGS, JOBS, READ_PRECISION, REPLICATES, SEED,
-                               check_analysable)
+from driftscreen.limits import JOBS, check_analysable
 from driftscreen.neutral.fit import (
     CONDITIONED_MIN_SPAN,
     NOISE_GRID,
@@ -53,6 +52,7 @@ from driftscreen.neutral.model import (
 )
 from driftscreen.neutral.simulate import simulate, simulate_conditioned
 from driftscreen.results import (
+    CalibrationSettings,
     DatasetSummary,
     NeutralityResult,
     ParameterEstimate,
@@ -84,23 +84,6 @@ NOT_COMBINED_NOTE = "not part of the combined test"
 CHUNK_CELLS = 2_000_000
 #: Significant digits of the numbers kept in the diagnostic tables of a result.
 DIAGNOSTIC_DIGITS = 6
-
-
-@dataclass(frozen=True)
-class CalibrationSettings:
-    """Settings of one calibration run; part of every result's provenance."""
-
-    replicates: int = 999
-    groupings: int = 200
-    seed: int = 0
-    null: NullOptions = NullOptions()
-
-    def __post_init__(self) -> None:
-        REPLICATES.check("replicates", self.replicates)
-        GROUPINGS.check("groupings", self.groupings)
-        SEED.check("seed", self.seed)
-        if not isinstance(self.null.noise, str):
-            READ_PRECISION.check("a fixed read precision", self.null.noise)
 
 
 @dataclass(frozen=True)
@@ -548,8 +531,9 @@ def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityRes
     return NeutralityResult(
         dataset=summarize_dataset(plan.dataset), model=model,
         statistics=calibrate_statistics(plan, null), parameters=parameters,
-        replicates=plan.settings.replicates, seed=plan.settings.seed, notes=model.flags,
-        diagnostics=observed_diagnostics(plan), taxa=taxon_results(plan, outputs))
+        settings=plan.settings, notes=model.flags, diagnostics=observed_diagnostics(plan),
+        taxa=taxon_results(plan, outputs),
+        statistic_options=tuple(repr(stat) for stat in plan.statistics))
 
 
 def taxon_results(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> pd.DataFrame | None:

@@ -13,7 +13,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from driftscreen.calibrate import COMBINED, CalibrationSettings, run_calibration
+from driftscreen.calibrate import CalibrationSettings, run_calibration
 from driftscreen.dataset import Dataset, Design
 from driftscreen.limits import check_analysable
 from driftscreen.results import NeutralityResult
@@ -69,7 +69,7 @@ def depth_sensitivity_line(dataset: Dataset, stated: NeutralityResult,
     lower = run_calibration(converted, settings, jobs=jobs)
     pairs = [f"{name} {stated.statistics[name].pvalue:.3g} -> {lower.statistics[name].pvalue:.3g}"
              for name in stated.statistics if name in lower.statistics]
-    same = (stated[COMBINED].pvalue <= 0.05) == (lower[COMBINED].pvalue <= 0.05)
+    same = stated.rejected() == lower.rejected()
     verdict = ("the verdict at alpha = 0.05 is the same at both depths" if same else
                "the verdict at alpha = 0.05 changes with the depth: it hinges on the stated "
                "depth, which should be justified")

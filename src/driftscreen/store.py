@@ -40,7 +40,7 @@ STORE_FOLDER = ".driftscreen"
 SETTINGS_FILE = "settings.json"
 RECORDS_FOLDER = "datasets"
 #: Version of the store's own layout; part of the fingerprint.
-STORE_FORMAT = 1
+STORE_FORMAT = 2
 #: Fingerprint entries that are shown but never compared (the same bytes may be moved).
 NOT_COMPARED = ("path",)
 #: Fingerprint entry of a screen run without the most influential samples.

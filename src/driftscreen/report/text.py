@@ -21,7 +21,7 @@ from driftscreen.report.format import (ALPHA, WIDTH, bullet_list, heading, key_v
                                        percent, pvalue_text, qvalue_text, sentence, shorten,
                                        table, taxon_table, verdict_word, wrap, wrapped_pairs)
 from driftscreen.report.taxa import TAXA_LEGEND, TAXA_METHODS, screen_taxa_lines, taxa_lines
-from driftscreen.statistics.registry import COMBINED
+from driftscreen.statistics.registry import COMBINED, statistic_class
 from driftscreen.version import __version__
 
 if TYPE_CHECKING:
@@ -39,11 +39,12 @@ def parameter_rows(parameters: dict[str, ParameterEstimate]) -> list[list[str]]:
             for p in parameters.values()]
 
 
-def statistic_rows(statistics: dict[str, StatisticResult], replicates: int) -> list[list[str]]:
-    return [[s.name, number(s.statistic), number(s.null_mean), number(s.null_sd),
-             number(s.effect_size, 3), number(s.ratio_to_median, 3),
-             pvalue_text(s.pvalue, replicates)]
-            for s in statistics.values()]
+def statistic_rows(result: NeutralityResult) -> list[list[str]]:
+    """Rows of the statistics table, from :meth:`NeutralityResult.to_frame`."""
+    return [[row.statistic, number(row.observed), number(row.null_mean), number(row.null_sd),
+             number(row.effect_size, 3), number(row.ratio_to_median, 3),
+             pvalue_text(row.p_value, result.replicates)]
+            for row in result.to_frame().itertuples(index=False)]
 
 
 def verdict(result: NeutralityResult, alpha: float = ALPHA) -> str:
@@ -198,43 +199,15 @@ def diagnostic_tables(result: NeutralityResult) -> dict[str, pd.DataFrame]:
             if len(table) and set(BLOCK_COLUMNS.get(name, ())) <= set(table.columns)}
 
 
-DIAGNOSTIC_LEGENDS = {
-    "stationary_divergence":
-        "Stationary divergence. p: share of the metacommunity; zero obs/exp: samples "
-        "without reads, observed and expected under neutrality; part: the taxon's part of "
-        "the statistic (bias-corrected Kullback-Leibler divergence in nats; the parts sum to "
-        "the statistic); variability: variance of its relative abundance against the "
-        "neutral one; +N rare: pooled with N rarer taxa.",
-    "regrouping_invariance":
-        "Regrouping invariance. Volatility: squared changes of a group's angular-"
-        "transformed abundance between samples over their neutral expectation, averaged "
-        f"with the statistic's weights; groups in up to {ABUNDANCE_CLASSES} classes of equal "
-        "size by fitted abundance (fraction of reads). Under neutrality every class is near "
-        "1; a trend or spread across classes points to niche structure.",
-    "fluctuation_scaling":
-        "Fluctuation scaling. Mean and variance of each taxon's relative abundance across "
-        "samples, the variance corrected for sequencing noise; the line is fitted with "
-        "weights that give rare taxa, whose variance is poorly determined, less say. The "
-        "neutral expectation is "
-        "p (1 - p) / (1 + theta) per taxon; the replicates' exponent also carries sampling "
-        "and estimation effects and is what the p-value compares with. b near 1 is "
-        "drift-like, b near 2 points to multiplicative environmental noise.",
-    "dispersion_heterogeneity":
-        "Dispersion heterogeneity. LR part: the taxon's part of the likelihood-ratio "
-        "statistic (taxon-specific against common beta-binomial theta, per taxon beyond the "
-        "first and, for time series, corrected for autocorrelation; the parts sum to the "
-        "statistic). Own theta above the common one: the taxon varies less than the common "
-        "theta implies; below: more. * at the end of the fitted range.",
-}
-
-
 def diagnostics_legend(names: Sequence[str]) -> list[str]:
     """How to read the diagnostics blocks of the given statistics, one paragraph each."""
     lines = wrap("What drives each statistic in the observed data (descriptive; the tests "
                  "are the p-values).")
     for name in names:
-        if name in DIAGNOSTIC_LEGENDS:
-            lines += [""] + wrap(DIAGNOSTIC_LEGENDS[name])
+        cls = statistic_class(name)
+        if cls is not None:
+            lines += [""] + wrap(f"{cls.title}. "
+                                 + cls.how_to_read.format(abundance_classes=ABUNDANCE_CLASSES))
     return lines
 
 
@@ -271,7 +244,7 @@ def dataset_section(result: NeutralityResult, legend: bool = True) -> list[str]:
         parameter_rows(result.parameters), "lrrl") + [""]
     lines += heading("Statistics") + table(
         ["statistic", "observed", "null mean", "null sd", "effect", "obs/med", "p-value"],
-        statistic_rows(result.statistics, result.replicates)) + [""]
+        statistic_rows(result)) + [""]
     lines += wrap(verdict(result))
     if result.influence is not None:
         lines += wrap(influence_line(result))
@@ -305,25 +278,6 @@ def dataset_report(result: NeutralityResult) -> str:
 
 
 # ----------------------------------------------------------------------------- screen report
-#: What each statistic measures, for the methods paragraph of the screen report.
-STATISTIC_METHODS = {
-    "stationary_divergence":
-        "the Kullback-Leibler divergence of each taxon's abundance distribution from its "
-        "stationary neutral (beta-binomial) law, summed over taxa, rare taxa pooled into "
-        "groups (after Fisher & Mehta 2014, PNAS 111:13111)",
-    "regrouping_invariance":
-        "the variance, over R = {groupings} random groupings of taxa, of the log volatility "
-        "of the groups' angular-transformed abundances (the grouping invariance of neutral "
-        "drift, after Washburne et al. 2016, PLoS Comput. Biol. 12:e1005124; angular "
-        "transform of Anscombe 1948, Biometrika 35:246)",
-    "fluctuation_scaling":
-        "the exponent of Taylor's law between the sampling-corrected variance and the mean "
-        "of taxon abundances, weighted by the precision of each taxon's variance (Taylor "
-        "1961, Nature 189:732)",
-    "dispersion_heterogeneity":
-        "the likelihood ratio of taxon-specific against common beta-binomial dispersion, "
-        "with each taxon's mean profiled, per taxon and corrected for autocorrelation",
-}
 
 
 #: How the most influential samples were found, for the methods paragraph.
@@ -493,11 +447,16 @@ def any_taxon_scan(run: ScreenResult) -> bool:
     return any(o.result is not None and o.result.taxa is not None for o in run.outcomes)
 
 
+def statistic_methods(name: str, groupings: int) -> str:
+    """What statistic ``name`` measures, for the methods paragraph (its name if unknown)."""
+    cls = statistic_class(name)
+    return name if cls is None else cls.methods.format(groupings=groupings)
+
+
 def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
     """A paragraph for a manuscript, with B, R, the seed and the version actually used."""
     settings = run.settings
-    described = [STATISTIC_METHODS.get(name, name).format(groupings=settings.groupings)
-                 for name in statistics_used(run)]
+    described = [statistic_methods(name, settings.groupings) for name in statistics_used(run)]
     if len(described) > 1:
         statistics = "; ".join(described[:-1]) + "; and " + described[-1]
     else:

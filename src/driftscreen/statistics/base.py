@@ -41,9 +41,23 @@ class Statistic(Protocol):
         True if its p-value enters ``combined``. A statistic whose calibration is not yet
         established on every kind of neutral data the validation study covers reports its
         p-value but stays out of the combination.
+    title:
+        Its name in prose (``"Stationary divergence"``), heading its diagnostics.
+    unit:
+        What its value is, for the axis of its null distribution.
+    methods:
+        What it measures, with its published basis, for the methods paragraph of a screen
+        (``{groupings}`` stands for the number of random groupings R).
+    how_to_read:
+        How to read its diagnostics, after its title (``{abundance_classes}`` stands for
+        the number of abundance classes the report shows).
     """
 
     name: str
+    title: str
+    unit: str
+    methods: str
+    how_to_read: str
     needs_time: bool
     alternative: Alternative
     marginal: bool

@@ -143,6 +143,20 @@ class DispersionHeterogeneity:
     """
 
     name: ClassVar[str] = "dispersion_heterogeneity"
+    #: How outputs name it, and what its value is (the axis of its null distribution).
+    title: ClassVar[str] = "Dispersion heterogeneity"
+    unit: ClassVar[str] = "likelihood ratio, taxon-specific vs common theta"
+    #: What it measures, for the methods paragraph ({groupings}: R).
+    methods: ClassVar[str] = (
+        "the likelihood ratio of taxon-specific against common beta-binomial dispersion, "
+        "with each taxon's mean profiled, per taxon and corrected for autocorrelation")
+    #: How to read its diagnostics ({abundance_classes}: classes of the report).
+    how_to_read: ClassVar[str] = (
+        "LR part: the taxon's part of the likelihood-ratio "
+        "statistic (taxon-specific against common beta-binomial theta, per taxon beyond the "
+        "first and, for time series, corrected for autocorrelation; the parts sum to the "
+        "statistic). Own theta above the common one: the taxon varies less than the common "
+        "theta implies; below: more. * at the end of the fitted range.")
     needs_time: ClassVar[bool] = False
     alternative: ClassVar[Alternative] = "greater"
     marginal: ClassVar[bool] = True

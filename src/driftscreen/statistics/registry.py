@@ -34,6 +34,11 @@ def default_statistics(*, time_series: bool, n_groupings: int = 200) -> list[Sta
     return statistics
 
 
+def statistic_class(name: str) -> type[Statistic] | None:
+    """The registered class of statistic ``name``; ``None`` for ``combined`` or another name."""
+    return next((cls for cls in STATISTIC_CLASSES if cls.name == name), None)
+
+
 def get_statistic(name: str, **options: object) -> Statistic:
     """The statistic called ``name``, built with ``options`` (its dataclass fields).
 

@@ -110,6 +110,21 @@ class StationaryDivergence:
     """
 
     name: ClassVar[str] = "stationary_divergence"
+    #: How outputs name it, and what its value is (the axis of its null distribution).
+    title: ClassVar[str] = "Stationary divergence"
+    unit: ClassVar[str] = "KL divergence from the stationary law, summed over taxa (nats)"
+    #: What it measures, for the methods paragraph ({groupings}: R).
+    methods: ClassVar[str] = (
+        "the Kullback-Leibler divergence of each taxon's abundance distribution from its "
+        "stationary neutral (beta-binomial) law, summed over taxa, rare taxa pooled into "
+        "groups (after Fisher & Mehta 2014, PNAS 111:13111)")
+    #: How to read its diagnostics ({abundance_classes}: classes of the report).
+    how_to_read: ClassVar[str] = (
+        "p: share of the metacommunity; zero obs/exp: samples "
+        "without reads, observed and expected under neutrality; part: the taxon's part of "
+        "the statistic (bias-corrected Kullback-Leibler divergence in nats; the parts sum to "
+        "the statistic); variability: variance of its relative abundance against the "
+        "neutral one; +N rare: pooled with N rarer taxa.")
     needs_time: ClassVar[bool] = False
     alternative: ClassVar[Alternative] = "greater"
     marginal: ClassVar[bool] = True

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from dataclasses import fields
+
 from driftscreen.errors import InputError
 from driftscreen.statistics.base import Statistic
 from driftscreen.statistics.dispersion_heterogeneity import DispersionHeterogeneity
@@ -23,14 +25,15 @@ STATISTIC_NAMES: tuple[str, ...] = tuple(cls.name for cls in STATISTIC_CLASSES) 
 def default_statistics(*, time_series: bool, n_groupings: int = 200) -> list[Statistic]:
     """All statistics a design allows, in the fixed order (time-only ones dropped for snapshots).
 
-    ``n_groupings`` is the number of random groupings of ``regrouping_invariance``.
+    ``n_groupings`` is the number of random groupings R, given to every statistic with an
+    option of that name (``regrouping_invariance``).
     """
     statistics: list[Statistic] = []
     for cls in STATISTIC_CLASSES:
         if cls.needs_time and not time_series:
             continue
-        options = {"n_groupings": n_groupings} if cls is RegroupingInvariance else {}
-        statistics.append(cls(**options))
+        takes_groupings = "n_groupings" in {option.name for option in fields(cls)}
+        statistics.append(cls(n_groupings=n_groupings) if takes_groupings else cls())
     return statistics
 
 

@@ -18,16 +18,20 @@ from driftscreen.dataset import Dataset
 from driftscreen.demo import run_demo as demo
 from driftscreen.errors import InputError
 from driftscreen.intake import read_datasets
+from driftscreen.intake.reader import CHOICES as INTAKE_CHOICES
 from driftscreen.limits import (DEPTH_SPREAD, GROUPINGS, INTERVAL, JOBS, MAX_READS,
                                MAX_READS_TEXT, MIN_TAXA, READ_PRECISION, READS, REPLICATES, SEED,
                                THETA, IntegerRange, NumberRange, check_analysable,
                                minimum_samples)
-from driftscreen.neutral.model import START_CHOICES, NullOptions
-from driftscreen.power import PowerDesign
-from driftscreen.synthetic import check_design_span
+from driftscreen.neutral.model import NOISE_CHOICES, START_CHOICES, NullOptions
+from driftscreen.power import ALTERNATIVES, PowerDesign
+from driftscreen.screen import BACKENDS
+from driftscreen.synthetic import MODELS, check_design_span
 from driftscreen.version import __version__
 
 EXIT_INPUT = 2
+#: Options of the library's parameters whose names differ from the option's.
+PARAMETER_OPTIONS = {"n_taxa": "--taxa", "n_samples": "--samples", "n_datasets": "--datasets"}
 
 
 class Parser(argparse.ArgumentParser):
@@ -86,7 +90,7 @@ def read_depth(text: str) -> float:
 
 def read_noise(text: str) -> str | float:
     """--read-noise: 'estimate', 'off' or a Dirichlet-multinomial precision C."""
-    if text in ("estimate", "off"):
+    if text in NOISE_CHOICES:
         return text
     try:
         value = float(text)
@@ -155,14 +159,14 @@ def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = F
                        help="one sequencing depth for every sample (relative-abundance tables)"
                             + ("; without COUNTS: median reads per sample of the design"
                                if optional_counts else ""))
-    group.add_argument("--abundance", choices=["auto", "counts", "fraction", "percent"],
+    group.add_argument("--abundance", choices=INTAKE_CHOICES["abundance"],
                        default="auto", help="what the table holds (default: detect)")
-    group.add_argument("--remainder", choices=["auto", "pool", "renormalise"], default="auto",
+    group.add_argument("--remainder", choices=INTAKE_CHOICES["remainder"], default="auto",
                        help="relative rows summing below 1: pool the rest as taxon 'other' "
                             "(default) or renormalise")
-    group.add_argument("--layout", choices=["auto", "wide", "long"], default="auto",
+    group.add_argument("--layout", choices=INTAKE_CHOICES["layout"], default="auto",
                        help="wide (taxa x samples) or long (sample, taxon, count) table")
-    group.add_argument("--orientation", choices=["auto", "taxa-rows", "taxa-columns"],
+    group.add_argument("--orientation", choices=INTAKE_CHOICES["orientation"],
                        default="auto", help="for wide tables: are taxa rows or columns")
     group.add_argument("--lineage", metavar="COL",
                        help="table column (BIOM: observation metadata field) with "
@@ -270,7 +274,7 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
                         "(default 0.2)")
     p.add_argument("--datasets", type=positive_int, default=1,
                    help="number of datasets written into the one table (default 1)")
-    p.add_argument("--model", choices=["neutral", "logistic", "lotka-volterra"],
+    p.add_argument("--model", choices=MODELS,
                    default="neutral",
                    help="neutral (default), or a niche alternative: the stochastic logistic "
                         "model or the noisy Lotka-Volterra community (see docs/power.md)")
@@ -347,7 +351,7 @@ def add_screen(sub: argparse._SubParsersAction) -> None:
     add_null_options(p)
     p.add_argument("--out", metavar="DIR", required=True,
                    help="output folder (created if needed); also holds the resume store")
-    p.add_argument("--backend", choices=["loky", "dask"], default="loky",
+    p.add_argument("--backend", choices=BACKENDS, default="loky",
                    help="parallel backend: worker processes on this machine (loky, default) "
                         "or a Dask cluster (needs driftscreen[dask])")
     p.add_argument("--scheduler", metavar="ADDRESS",
@@ -426,7 +430,7 @@ def add_power(sub: argparse._SubParsersAction) -> None:
     group.add_argument("--depth-spread", metavar="S", type=number_in(DEPTH_SPREAD),
                        help="standard deviation of log depth across samples (default 0)")
     group = p.add_argument_group("alternative")
-    group.add_argument("--alternative", choices=["logistic", "lotka-volterra"],
+    group.add_argument("--alternative", choices=ALTERNATIVES,
                        default="logistic",
                        help="niche model: independent stochastic logistic taxa (strength = "
                             "environmental noise sigma) or a competitive Lotka-Volterra "
@@ -561,13 +565,26 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def option_names(parser: argparse.ArgumentParser) -> dict[str, str]:
+    """The option of every Python parameter the library names in an :class:`InputError`:
+    the option whose destination has its name, or the one of :data:`PARAMETER_OPTIONS`."""
+    names: dict[str, str] = {}
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            for command in action.choices.values():
+                names.update(option_names(command))
+        elif action.option_strings:
+            names.setdefault(action.dest, action.option_strings[-1])
+    return {**names, **PARAMETER_OPTIONS}
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
         return args.handler(args)
     except InputError as error:
-        print(f"driftscreen: error: {error.one_line()}", file=sys.stderr)
+        print(f"driftscreen: error: {error.one_line(option_names(parser))}", file=sys.stderr)
         return EXIT_INPUT
     except KeyboardInterrupt:
         print("driftscreen: interrupted", file=sys.stderr)

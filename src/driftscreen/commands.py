@@ -11,7 +11,6 @@ from typing import Any, TextIO
 from driftscreen import calibrate
 from driftscreen.calibrate import CalibrationSettings
 from driftscreen.dataset import Dataset
-from driftscreen.errors import InputError
 from driftscreen.files import (atomic_write_text, check_distinct_outputs, check_output_file,
                                check_output_folder)
 from driftscreen.influence import wants_influence, with_influence
@@ -19,7 +18,7 @@ from driftscreen.intake import intake_defaults, read_datasets
 from driftscreen.limits import THETA
 from driftscreen.neutral.model import NullOptions
 from driftscreen.notes import note_steps, with_notes, with_screen_notes
-from driftscreen.power import NicheAlternative, PowerDesign, parse_strengths, power_curve
+from driftscreen.power import PowerDesign, niche_alternative, parse_strengths, power_curve
 from driftscreen.report.figures import require_matplotlib, write_figures
 from driftscreen.report.tables import (parameters_tsv, result_taxa_tsv, results_json,
                                        results_tsv, taxa_across_tsv, taxa_tsv)
@@ -210,17 +209,7 @@ def power_command(design: PowerDesign, *, alternative: str = "logistic",
     if table:
         check_output_file(table, "--table", inputs)
     check_distinct_outputs({"--output": output, "--table": table})
-    if not 0.0 < alpha < 1.0:
-        raise InputError(f"alpha {alpha:g} is not between 0 and 1", file="option --alpha",
-                         fix="give a level such as 0.05")
-    if noise is not None and alternative != "lotka-volterra":
-        raise InputError("--noise is a setting of the lotka-volterra alternative",
-                         file="option --noise",
-                         fix="drop it, or add --alternative lotka-volterra")
-    if noise is not None and not 0.0 <= noise < 2.0:
-        raise InputError(f"noise {noise:g} is not in [0, 2)", file="option --noise",
-                         fix="give a value such as 0.01")
-    niche = NicheAlternative(alternative, timescale=timescale, noise=noise or 0.0)
+    niche = niche_alternative(alternative, timescale=timescale, noise=noise)
     grid = None if strengths is None else parse_strengths(strengths, niche)
     result = power_curve(design, niche, grid, n_datasets=n_datasets, replicates=replicates,
                          groupings=groupings, seed=seed, jobs=jobs, alpha=alpha,

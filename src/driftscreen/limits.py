@@ -110,23 +110,33 @@ class IntegerRange:
 
 @dataclass(frozen=True)
 class NumberRange:
-    """The finite numbers an option accepts: ``minimum <= value <= maximum``."""
+    """The finite numbers an option accepts: ``minimum <= value <= maximum`` (``< maximum``
+    with ``open_maximum``)."""
 
     minimum: float
     maximum: float = math.inf
+    open_maximum: bool = False
 
     def __contains__(self, value: object) -> bool:
         try:
             number = float(value)  # type: ignore[arg-type]
         except (TypeError, ValueError):
             return False
-        return math.isfinite(number) and self.minimum <= number <= self.maximum
+        below = number < self.maximum if self.open_maximum else number <= self.maximum
+        return math.isfinite(number) and self.minimum <= number and below
 
     def describe(self) -> str:
-        """``"a number >= 1e-06"`` or ``"a number from 0 to 5"``."""
+        """``"a number >= 1e-06"``, ``"a number from 0 to 5"`` or ``"a number in [0, 2)"``."""
         if math.isinf(self.maximum):
             return f"a number >= {self.minimum:g}"
+        if self.open_maximum:
+            return f"a number in {self.interval()}"
         return f"a number from {self.minimum:g} to {self.maximum:g}"
+
+    def interval(self) -> str:
+        """``"[0, 2)"``, ``"[1e-06, 5]"`` or ``"[0, inf)"``."""
+        closing = ")" if self.open_maximum or math.isinf(self.maximum) else "]"
+        return f"[{self.minimum:g}, {self.maximum:g}{closing}"
 
     def check(self, name: str, value: object) -> None:
         """Raise ValueError (a programming error) if ``value`` is outside the range."""
@@ -146,3 +156,9 @@ READ_PRECISION = NumberRange(1e-6)
 INTERVAL = NumberRange(1e-6, MAX_SPAN_DAYS)
 DEPTH_SPREAD = NumberRange(0.0, 5.0)
 THETA = NumberRange(1e-6, 1e12)
+#: Niche models: the environmental noise sigma of a stochastic logistic taxon (its
+#: stationary Gamma law has squared coefficient of variation sigma / (2 - sigma), finite
+#: below 2; Grilli 2020, Nat. Commun. 11:4743) and of a Lotka-Volterra community, and the
+#: mean competition coefficient of a Lotka-Volterra community.
+SIGMA = NumberRange(0.0, 2.0, open_maximum=True)
+COMPETITION = NumberRange(0.0)

@@ -30,7 +30,7 @@ from driftscreen import seeds
 from driftscreen.calibrate import COMBINED, CalibrationSettings, neutrality_test
 from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
-from driftscreen.limits import unanalysable_reason
+from driftscreen.limits import COMPETITION, SIGMA, unanalysable_reason
 from driftscreen.niche import LotkaVolterraParameters, NoisyLotkaVolterra, StochasticLogistic
 from driftscreen.progress import PowerProgress
 from driftscreen.statistics.registry import default_statistics
@@ -49,6 +49,9 @@ DEFAULT_STRENGTHS = {
     "logistic": (1e-4, 3e-4, 1e-3, 3e-3, 0.01, 0.03, 0.1, 0.3, 1.0),
     "lotka-volterra": (0.01, 0.03, 0.1, 0.2, 0.3, 0.5, 1.0),
 }
+#: How to give a strength each alternative allows.
+STRENGTHS_FIX = (f"for logistic, sigma must be in {SIGMA.interval()}; for lotka-volterra, "
+                 f"the competition must be >= {COMPETITION.minimum:g}")
 #: Settings of the quick power run behind :func:`detectable_line`.
 QUICK_DATASETS = 12
 QUICK_REPLICATES = 99
@@ -256,8 +259,8 @@ class NicheAlternative:
             raise ValueError(f"alternative must be one of {ALTERNATIVES}, got {self.name!r}")
         if not self.timescale > 0:
             raise ValueError("timescale must be positive")
-        if not 0.0 <= self.noise < 2.0:
-            raise ValueError("noise must be in [0, 2)")
+        if self.noise not in SIGMA:
+            raise ValueError(f"noise must be in {SIGMA.interval()}")
         if self.name == "logistic" and self.noise != 0.0:
             raise ValueError("noise is a setting of the lotka-volterra alternative only")
 
@@ -287,10 +290,10 @@ class NicheAlternative:
 
     def strength_problem(self, strength: float) -> str:
         """Why ``strength`` is not allowed for this alternative, or ``""``."""
-        if not math.isfinite(strength) or strength < 0:
+        if strength not in COMPETITION:
             return f"strength {strength:g} is not a non-negative number"
-        if self.name == "logistic" and strength >= 2.0:
-            return f"strength (sigma) {strength:g} is not below 2"
+        if self.name == "logistic" and strength not in SIGMA:
+            return f"strength (sigma) {strength:g} is not below {SIGMA.maximum:g}"
         return ""
 
     def is_neutral_limit(self, strength: float) -> bool:
@@ -308,6 +311,24 @@ class NicheAlternative:
         if profile is None:
             return NoisyLotkaVolterra(n_taxa, **options)
         return ProfiledLotkaVolterra(n_taxa, **options, profile=tuple(profile))
+
+
+def niche_alternative(name: str, *, timescale: float = 1.0, noise: float | None = None
+                      ) -> NicheAlternative:
+    """The alternative ``name``; ``noise`` (default 0) only for ``"lotka-volterra"``.
+
+    Raises
+    ------
+    InputError
+        A noise for the logistic alternative, or one out of :data:`driftscreen.limits.SIGMA`.
+    """
+    if noise is not None and name != "lotka-volterra":
+        raise InputError("noise is a setting of the lotka-volterra alternative",
+                         parameter="noise", fix="drop it, or choose that alternative")
+    if noise is not None and noise not in SIGMA:
+        raise InputError(f"noise {noise:g} is not in {SIGMA.interval()}", parameter="noise",
+                         fix="give a value such as 0.01")
+    return NicheAlternative(name, timescale=timescale, noise=noise or 0.0)
 
 
 def as_alternative(alternative: str | NicheAlternative) -> NicheAlternative:
@@ -346,19 +367,17 @@ def parse_strengths(text: str, alternative: NicheAlternative) -> tuple[float, ..
            + ",".join(f"{s:g}" for s in alternative.default_strengths()[:4]))
     entries = [entry.strip() for entry in text.split(",") if entry.strip()]
     if not entries:
-        raise InputError("no strengths given", file="option --strengths", fix=fix)
+        raise InputError("no strengths given", parameter="strengths", fix=fix)
     values = []
     for entry in entries:
         try:
             values.append(float(entry))
         except ValueError:
-            raise InputError(f"'{entry}' is not a number", file="option --strengths",
+            raise InputError(f"'{entry}' is not a number", parameter="strengths",
                              fix=fix) from None
         problem = alternative.strength_problem(values[-1])
         if problem:
-            raise InputError(problem, file="option --strengths",
-                             fix="for logistic, sigma must be in [0, 2); for lotka-volterra, "
-                                 "the competition must be >= 0")
+            raise InputError(problem, parameter="strengths", fix=STRENGTHS_FIX)
     return checked_strengths(values, alternative)
 
 
@@ -559,10 +578,7 @@ def power_curve(design: PowerDesign, alternative: str | NicheAlternative = "logi
     """
     alternative = as_alternative(alternative)
     grid = checked_strengths(strengths, alternative)
-    if n_datasets < 1:
-        raise ValueError("n_datasets must be at least 1")
-    if not 0.0 < alpha < 1.0:
-        raise ValueError("alpha must be in (0, 1)")
+    check_power_input(n_datasets, alpha)
     settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
     names = statistic_names(design, groupings)
     tasks = [PowerTask(design, alternative, strength, index, settings, names)
@@ -579,6 +595,22 @@ def power_curve(design: PowerDesign, alternative: str | NicheAlternative = "logi
                      for task, out in zip(tasks, outputs) if out.failure)
     return PowerResult(design, alternative, np.array(grid), names, pvalues, failures, alpha,
                        settings)
+
+
+def check_power_input(n_datasets: int, alpha: float) -> None:
+    """The input check of :func:`power_curve` besides the grid and the calibration settings.
+
+    Raises
+    ------
+    InputError
+        ``n_datasets`` below 1 or ``alpha`` outside (0, 1).
+    """
+    if n_datasets < 1:
+        raise InputError(f"{n_datasets} datasets per strength are too few",
+                         parameter="n_datasets", fix="give at least 1")
+    if not 0.0 < alpha < 1.0:
+        raise InputError(f"alpha {alpha:g} is not between 0 and 1", parameter="alpha",
+                         fix="give a level such as 0.05")
 
 
 # ----------------------------------------------------------------------------- detectable line

@@ -415,17 +415,17 @@ def check_backend(backend: str, scheduler: str | None = None) -> None:
         Unknown backend, a scheduler without the Dask backend, or Dask not installed.
     """
     if backend not in BACKENDS:
-        raise InputError(f"unknown backend '{backend}'", file="option --backend",
+        raise InputError(f"unknown backend '{backend}'", parameter="backend",
                          fix="use " + " or ".join(BACKENDS))
     if backend != "dask" and scheduler is not None:
         raise InputError("a scheduler address needs the Dask backend",
-                         file="option --scheduler", fix="add --backend dask")
+                         parameter="scheduler", fix="add --backend dask")
     if backend == "dask":
         try:
             import distributed  # noqa: F401
         except ImportError:
             raise InputError("the Dask backend needs the packages dask and distributed",
-                             file="option --backend",
+                             parameter="backend",
                              fix="pip install 'driftscreen[dask]', or use --backend loky"
                              ) from None
 
@@ -469,7 +469,7 @@ def dask_client(scheduler: str | None, jobs: int) -> Iterator[Any]:
         client = Client(scheduler, timeout=SCHEDULER_TIMEOUT)
     except (OSError, TimeoutError, ValueError) as error:
         raise InputError(f"cannot reach the Dask scheduler at '{scheduler}' ({error})",
-                         file="option --scheduler",
+                         parameter="scheduler",
                          fix="check the address and that the scheduler is running") from None
     with client:
         yield client

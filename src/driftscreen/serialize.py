@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from driftscreen.neutral.model import NeutralModel, NullOptions
+from driftscreen.neutral.model import NOISE_CHOICES, NeutralModel, NullOptions
 from driftscreen.results import (CalibrationSettings, DatasetSummary, NeutralityResult,
                                  ParameterEstimate, SampleInfluence, StatisticResult)
 
@@ -123,7 +123,7 @@ def settings_from_dict(data: Mapping[str, Any]) -> CalibrationSettings:
     return CalibrationSettings(
         replicates=int(data["replicates"]), groupings=int(data["groupings"]),
         seed=int(data["seed"]),
-        null=NullOptions(noise=noise if noise in ("estimate", "off") else float_from_json(noise),
+        null=NullOptions(noise=noise if noise in NOISE_CHOICES else float_from_json(noise),
                          start=data["start"]))
 
 

@@ -19,7 +19,8 @@ from driftscreen import seeds
 from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
 from driftscreen.intake import write_tables
-from driftscreen.limits import DEPTH_SPREAD, INTERVAL, MAX_READS, MAX_SPAN_DAYS, MAX_SPAN_YEARS
+from driftscreen.limits import (COMPETITION, DEPTH_SPREAD, INTERVAL, MAX_READS, MAX_SPAN_DAYS,
+                               MAX_SPAN_YEARS, SIGMA)
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import simulate
 from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic
@@ -27,6 +28,8 @@ from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic
 COUNTS_FILE = "counts.tsv"
 METADATA_FILE = "metadata.tsv"
 TRUTH_FILE = "truth.tsv"
+#: The models :func:`simulated_dataset` simulates: the neutral null and two niche models.
+MODELS = ("neutral", "logistic", "lotka-volterra")
 
 
 @dataclass(frozen=True)
@@ -140,9 +143,9 @@ def niche_model(model: str, n_taxa: int,
     try:
         return niche_class(n_taxa) if strength is None else niche_class(n_taxa, strength=strength)
     except ValueError as error:
-        raise InputError(str(error), place="option --strength",
-                         fix="logistic strengths (sigma) lie in [0, 2); Lotka-Volterra "
-                             "strengths are >= 0") from None
+        raise InputError(str(error), parameter="strength",
+                         fix=f"logistic strengths (sigma) lie in {SIGMA.interval()}; "
+                             f"Lotka-Volterra strengths are >= {COMPETITION.minimum:g}") from None
 
 
 def neutral_collection(n_datasets: int, spec: DesignSpec, n_taxa: int, theta: float,
@@ -175,4 +178,4 @@ def check_design_span(n_samples: int, interval: float | None) -> None:
         raise InputError(f"{n_samples} samples every {interval:g} days span "
                          f"{interval * (n_samples - 1) / 365.25:.0f} years, more than a "
                          f"sampling campaign of {MAX_SPAN_YEARS} years",
-                         file="option --interval", fix="give fewer samples or a shorter interval")
+                         parameter="interval", fix="give fewer samples or a shorter interval")

@@ -27,6 +27,7 @@ from driftscreen.limits import (MAX_READS, MAX_READS_TEXT, MAX_SPAN_DAYS, MAX_SP
                                MIN_SAMPLES_SNAPSHOT, MIN_TAXA)
 
 OTHER = "other"
+#: The choices of the intake options that take one (the parser offers the same).
 CHOICES = {
     "layout": ("auto", "wide", "long"),
     "orientation": ("auto", "taxa-rows", "taxa-columns"),

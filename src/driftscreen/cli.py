@@ -17,7 +17,7 @@ from driftscreen.commands import power_command, screen_command, simulate_command
 from driftscreen.dataset import Dataset
 from driftscreen.demo import run_demo as demo
 from driftscreen.errors import InputError
-from driftscreen.intake import read_datasets
+from driftscreen.intake import intake_defaults, read_datasets
 from driftscreen.intake.reader import CHOICES as INTAKE_CHOICES
 from driftscreen.limits import (DEPTH_SPREAD, GROUPINGS, INTERVAL, JOBS, MAX_READS,
                                MAX_READS_TEXT, MIN_TAXA, READ_PRECISION, READS, REPLICATES, SEED,
@@ -179,11 +179,9 @@ def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = F
 
 
 def intake_options(args: argparse.Namespace) -> dict:
-    """The keyword options of ``read_datasets`` given by :func:`add_input_options`."""
-    return dict(layout=args.layout, orientation=args.orientation, sample_id=args.sample_id,
-                dataset_by=args.dataset_by, time_by=args.time_by, depth_by=args.depth_by,
-                depth=args.depth, abundance=args.abundance, remainder=args.remainder,
-                lineage=args.lineage, rank=args.rank, taxon_map=args.taxon_map)
+    """The keyword options of ``read_datasets`` given by :func:`add_input_options` (each
+    option's destination is the parameter's name)."""
+    return {name: getattr(args, name) for name in intake_defaults()}
 
 
 def read_input(args: argparse.Namespace) -> list[Dataset]:

@@ -27,7 +27,7 @@ from joblib import Parallel, delayed
 from scipy import stats
 
 from driftscreen import seeds
-from driftscreen.calibrate import COMBINED, CalibrationSettings, neutrality_test
+from driftscreen.calibrate import COMBINED, CalibrationSettings, run_calibration
 from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
 from driftscreen.limits import COMPETITION, SIGMA, unanalysable_reason
@@ -436,10 +436,7 @@ def run_power_task(task: PowerTask) -> TaskOutput:
         reason = unanalysable_reason(dataset)
         if reason:
             return TaskOutput(missing, reason)
-        result = neutrality_test(dataset, replicates=task.settings.replicates,
-                                 groupings=task.settings.groupings, seed=task.settings.seed,
-                                 noise=task.settings.null.noise,
-                                 start=task.settings.null.start)
+        result = run_calibration(dataset, task.settings)
     except Exception as error:  # noqa: BLE001 - one dataset's failure must not stop the run
         return TaskOutput(missing, f"{type(error).__name__}: {error}")
     return TaskOutput(np.array([result.statistics[name].pvalue if name in result.statistics
@@ -576,11 +573,21 @@ def power_curve(design: PowerDesign, alternative: str | NicheAlternative = "logi
     PowerResult
         Rejection rates with Wilson intervals, the minimum detectable strength, ``summary()``.
     """
+    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
+    return power_with(design, alternative, strengths, n_datasets, settings, jobs=jobs,
+                      alpha=alpha, messages=messages)
+
+
+def power_with(design: PowerDesign, alternative: str | NicheAlternative,
+               strengths: Sequence[float] | None, n_datasets: int,
+               settings: CalibrationSettings, *, jobs: int = 1, alpha: float = 0.05,
+               messages: TextIO | None = None) -> PowerResult:
+    """:func:`power_curve` with its calibration settings as one record (the null's options
+    included)."""
     alternative = as_alternative(alternative)
     grid = checked_strengths(strengths, alternative)
     check_power_input(n_datasets, alpha)
-    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
-    names = statistic_names(design, groupings)
+    names = statistic_names(design, settings.groupings)
     tasks = [PowerTask(design, alternative, strength, index, settings, names)
              for strength in grid for index in range(n_datasets)]
     progress = PowerProgress(len(tasks), messages)
@@ -629,8 +636,8 @@ def bisect_detectable(design: PowerDesign, alternative: NicheAlternative,
     evaluated: dict[float, float] = {}
     while above - below > 1:
         middle = (below + above) // 2
-        run = power_curve(design, alternative, [grid[middle]], n_datasets,
-                          settings.replicates, settings.groupings, settings.seed, jobs, alpha)
+        run = power_with(design, alternative, [grid[middle]], n_datasets, settings,
+                         jobs=jobs, alpha=alpha)
         evaluated[grid[middle]] = float(run.combined_power()[0])
         if evaluated[grid[middle]] >= TARGET_POWER:
             above = middle
@@ -648,12 +655,12 @@ def detectable_line(dataset: Dataset, settings: CalibrationSettings, *,
 
     A quick power run on the dataset's own design (times, depths, abundance profile):
     ``n_datasets`` per strength, B = ``replicates``, bisection over a short grid
-    (:func:`bisect_detectable`); ``settings`` gives the groupings and the seed.
+    (:func:`bisect_detectable`); ``settings`` gives the groupings, the seed and the null's
+    options.
     """
     alt = as_alternative(alternative)
     grid = DEFAULT_STRENGTHS[alt.name]
-    quick = CalibrationSettings(replicates=replicates, groupings=settings.groupings,
-                                seed=settings.seed, null=settings.null)
+    quick = replace(settings, replicates=replicates)
     design = PowerDesign.from_dataset(dataset)
     mde = bisect_detectable(design, alt, grid, n_datasets, quick, jobs, alpha)
     head = f"{DETECTABLE_PREFIX}{design.short_text()}), the {alt.label} niche alternative"

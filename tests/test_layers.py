@@ -41,7 +41,7 @@ RANKS: dict[str, int] = {
     "commands": 18,
     "demo": 19,
     "cli": 20,
-    "validation": 21,
+    "calibration_study": 21,
     "__init__": 22,
 }
 #: Order of the modules inside a package (a module imports only earlier ones).

@@ -36,7 +36,7 @@ per dataset, drawn at random, so that the p-values are independent) and, on nich
 the recall of the five taxa with the largest true departures (the ``departures`` of the
 niche models: the responding taxa of the tracking collection, the largest carrying
 capacities of the others). Run the whole study with
-``python -m driftscreen.validation`` (see ``--help``); a small version runs in the test suite.
+``python -m driftscreen.calibration_study`` (see ``--help``); a small version runs in the test suite.
 """
 
 from __future__ import annotations
@@ -853,7 +853,7 @@ def report(neutral: pd.DataFrame, niche: pd.DataFrame, alpha: float, command: st
              f"({len(neutral)} neutral and {len(niche)} niche datasets; {seconds / 60:.1f} "
              f"minutes of wall time.) Rejection rates at alpha = {alpha:g}, with Wilson 95% "
              "intervals. The collections, their generators and the niche models are "
-             "described in `src/driftscreen/validation.py`.", ""]
+             "described in `src/driftscreen/calibration_study.py`.", ""]
     if len(neutral):
         parts += false_positive_sections(with_factors(neutral), alpha)
     if len(niche):
@@ -890,7 +890,7 @@ def count(text: str) -> int:
 
 def build_parser() -> argparse.ArgumentParser:
     parser = Parser(
-        prog="python -m driftscreen.validation",
+        prog="python -m driftscreen.calibration_study",
         description="Run the validation study: false-positive rates on simulated neutral "
                     "datasets and power on simulated niche datasets.")
     parser.add_argument("--collections", type=collection_list, default=list(COLLECTIONS),
@@ -922,7 +922,7 @@ def main(argv: Sequence[str] | None = None) -> int:
                       seed=args.seed, jobs=args.jobs)
     neutral = frame[frame["generator"].isin(NEUTRAL_GENERATORS)]
     niche = frame[~frame["generator"].isin(NEUTRAL_GENERATORS)]
-    command = "python -m driftscreen.validation " + " ".join(
+    command = "python -m driftscreen.calibration_study " + " ".join(
         sys.argv[1:] if argv is None else argv)
     text = report(neutral, niche, args.alpha, command.strip(), time.perf_counter() - start)
     atomic_write_text(args.out, text)

@@ -20,9 +20,8 @@ from driftscreen.errors import InputError
 from driftscreen.intake import intake_defaults, read_datasets
 from driftscreen.intake.reader import CHOICES as INTAKE_CHOICES
 from driftscreen.limits import (DEPTH_SPREAD, GROUPINGS, INTERVAL, JOBS, MAX_READS,
-                               MAX_READS_TEXT, MIN_TAXA, READ_PRECISION, READS, REPLICATES, SEED,
-                               THETA, IntegerRange, NumberRange, check_analysable,
-                               minimum_samples)
+                               MAX_READS_TEXT, READ_PRECISION, READS, REPLICATES, SEED, THETA,
+                               IntegerRange, NumberRange, check_analysable)
 from driftscreen.neutral.model import NOISE_CHOICES, START_CHOICES, NullOptions
 from driftscreen.power import ALTERNATIVES, PowerDesign
 from driftscreen.screen import BACKENDS
@@ -489,13 +488,6 @@ def power_design(dataset: Dataset | None, *, n_taxa: int | None, n_samples: int 
         option = "--interval" if interval is not None else "--irregular"
         raise InputError("a snapshot design has no sampling times", file=f"option {option}",
                          fix="drop it, or drop --snapshot")
-    minimum = minimum_samples(time_series=not snapshot)
-    if n_samples < minimum:
-        raise InputError(f"{n_samples} samples are too few to analyse",
-                         file="option --samples", fix=f"give at least {minimum}")
-    if n_taxa < MIN_TAXA:
-        raise InputError(f"{n_taxa} taxa are too few to analyse", file="option --taxa",
-                         fix=f"give at least {MIN_TAXA}")
     check_design_span(n_samples, None if snapshot else interval)
     return PowerDesign.from_numbers(n_taxa=n_taxa, n_samples=n_samples,
                                     interval=None if snapshot else interval,

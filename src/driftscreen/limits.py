@@ -51,21 +51,34 @@ def minimum_samples(time_series: bool) -> int:
     return MIN_SAMPLES_TIME_SERIES if time_series else MIN_SAMPLES_SNAPSHOT
 
 
-def unanalysable_reason(dataset: Dataset) -> str:
-    """Why ``dataset`` cannot be analysed (starting ``"not analysed: "``), or ``""``.
+def shortfall(time_series: bool, n_samples: int, n_taxa: int) -> tuple[str, int] | None:
+    """What a design of this size lacks to be analysable: ``("samples", fewest)`` or
+    ``("taxa", fewest)``; ``None`` when it is analysable.
 
     Time series need at least 4 samples (3 intervals) and snapshots at least 3 samples,
     both at least 2 taxa with reads.
     """
-    minimum = minimum_samples(dataset.is_time_series)
-    kind = "a time series" if dataset.is_time_series else "a snapshot design"
-    if dataset.n_samples < minimum:
+    minimum = minimum_samples(time_series)
+    if n_samples < minimum:
+        return "samples", minimum
+    if n_taxa < MIN_TAXA:
+        return "taxa", MIN_TAXA
+    return None
+
+
+def unanalysable_reason(dataset: Dataset) -> str:
+    """Why ``dataset`` cannot be analysed (starting ``"not analysed: "``), or ``""``
+    (:func:`shortfall`)."""
+    lacking = shortfall(dataset.is_time_series, dataset.n_samples, dataset.n_taxa)
+    if lacking is None:
+        return ""
+    what, minimum = lacking
+    if what == "samples":
+        kind = "a time series" if dataset.is_time_series else "a snapshot design"
         return (f"{NOT_ANALYSED}{kind} needs at least {minimum} samples, this dataset has "
                 f"{dataset.n_samples}")
-    if dataset.n_taxa < MIN_TAXA:
-        return (f"{NOT_ANALYSED}at least {MIN_TAXA} taxa with reads are needed, this dataset "
-                f"has {dataset.n_taxa}")
-    return ""
+    return (f"{NOT_ANALYSED}at least {minimum} taxa with reads are needed, this dataset "
+            f"has {dataset.n_taxa}")
 
 
 def check_analysable(dataset: Dataset, fix: str | None = None) -> None:
@@ -73,7 +86,8 @@ def check_analysable(dataset: Dataset, fix: str | None = None) -> None:
     ``fix`` (default: more samples, or a look at the taxa, as the reason asks)."""
     reason = unanalysable_reason(dataset)
     if reason:
-        few_samples = dataset.n_samples < minimum_samples(dataset.is_time_series)
+        few_samples = shortfall(dataset.is_time_series, dataset.n_samples,
+                                dataset.n_taxa)[0] == "samples"
         raise InputError(reason.removeprefix(NOT_ANALYSED), file=", ".join(dataset.source) or None,
                          place=f"dataset '{dataset.name}'",
                          fix=fix or (FEW_SAMPLES_FIX if few_samples else FEW_TAXA_FIX))

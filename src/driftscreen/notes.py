@@ -5,7 +5,7 @@ it: what the design could have detected (:func:`driftscreen.power.detectable_lin
 datasets whose neutrality is not rejected) and how the p-values move at a tenfold lower
 depth (:func:`driftscreen.reanalysis.depth_sensitivity_line`, for datasets converted from
 relative abundances). The rule for "not rejected" is one: the combined q-value across the
-datasets tested together is above :data:`ALPHA`; a single test is a screen of one dataset,
+datasets tested together is above :data:`driftscreen.results.ALPHA`; a single test is a screen of one dataset,
 whose q-value is its p-value. A dataset whose notes already hold a step's line (a record
 reused from the store) keeps it, so a resumed screen computes only the lines still missing.
 """
@@ -21,14 +21,10 @@ from driftscreen import power
 from driftscreen.calibrate import CalibrationSettings
 from driftscreen.dataset import Dataset
 from driftscreen.reanalysis import DEPTH_SENSITIVITY_PREFIX, depth_sensitivity_line
-from driftscreen.results import NeutralityResult
+from driftscreen.results import ALPHA, NeutralityResult
 from driftscreen.screen import ScreenResult, keep
 from driftscreen.statistics.registry import COMBINED
 from driftscreen.store import ResultStore
-
-#: Level of the combined q-value above which a dataset is "not rejected".
-ALPHA = 0.05
-
 
 @dataclass(frozen=True)
 class NoteStep:
@@ -59,7 +55,8 @@ class NoteStep:
 
 
 def not_rejected(qvalue: float) -> bool:
-    """The one rule: a combined q-value above :data:`ALPHA` (a missing one is not tested)."""
+    """The one rule: a combined q-value above :data:`~driftscreen.results.ALPHA` (a missing
+    one is not tested)."""
     return qvalue is not None and math.isfinite(qvalue) and qvalue > ALPHA
 
 

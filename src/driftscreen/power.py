@@ -30,7 +30,7 @@ from driftscreen import seeds
 from driftscreen.calibrate import COMBINED, CalibrationSettings, run_calibration
 from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
-from driftscreen.limits import COMPETITION, SIGMA, unanalysable_reason
+from driftscreen.limits import COMPETITION, SIGMA, shortfall, unanalysable_reason
 from driftscreen.niche import LotkaVolterraParameters, NoisyLotkaVolterra, StochasticLogistic
 from driftscreen.progress import PowerProgress
 from driftscreen.statistics.registry import default_statistics
@@ -160,7 +160,19 @@ class PowerDesign:
     @classmethod
     def from_numbers(cls, *, n_taxa: int, n_samples: int, interval: float | None, depth: int,
                      irregular: bool = False, depth_spread: float = 0.0) -> PowerDesign:
-        """A design from numbers; ``interval=None`` makes a snapshot design."""
+        """A design from numbers; ``interval=None`` makes a snapshot design.
+
+        Raises
+        ------
+        InputError
+            A design too small to analyse (:func:`driftscreen.limits.shortfall`).
+        """
+        lacking = shortfall(interval is not None, n_samples, n_taxa)
+        if lacking is not None:
+            what, minimum = lacking
+            count = n_samples if what == "samples" else n_taxa
+            raise InputError(f"{count} {what} are too few to analyse", parameter=f"n_{what}",
+                             fix=f"give at least {minimum}")
         spec = DesignSpec(n_samples=n_samples, interval=interval, irregular=irregular,
                           depth=depth, depth_spread=depth_spread)
         return cls(n_taxa, spec=spec)

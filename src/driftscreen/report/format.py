@@ -11,8 +11,9 @@ import math
 import textwrap
 from collections.abc import Sequence
 
+from driftscreen.results import ALPHA, rejected
+
 WIDTH = 78
-ALPHA = 0.05
 
 
 def number(value: float, digits: int = 4) -> str:
@@ -127,7 +128,7 @@ def verdict_word(qvalue: float, alpha: float = ALPHA) -> str:
     """The screen's verdict on neutrality from the combined q-value."""
     if qvalue is None or not math.isfinite(qvalue):
         return "not tested"
-    return "rejected" if qvalue <= alpha else "not rejected"
+    return "rejected" if rejected(qvalue, alpha) else "not rejected"
 
 
 def wrapped_pairs(pairs: Sequence[tuple[str, str]]) -> list[str]:

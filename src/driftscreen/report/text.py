@@ -53,7 +53,7 @@ def verdict(result: NeutralityResult, alpha: float = ALPHA) -> str:
     if not math.isfinite(combined.pvalue):
         return "No verdict: no statistic could be computed for this dataset."
     p_text = pvalue_text(combined.pvalue, result.replicates)
-    if combined.pvalue <= alpha:
+    if result.rejected(alpha):
         strongest = max((s for k, s in result.statistics.items() if k != COMBINED
                          and math.isfinite(s.effect_size)),
                         key=lambda s: abs(s.effect_size), default=None)

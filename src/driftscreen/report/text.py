@@ -21,7 +21,7 @@ from driftscreen.report.format import (ALPHA, WIDTH, bullet_list, heading, key_v
                                        percent, pvalue_text, qvalue_text, sentence, shorten,
                                        table, taxon_table, verdict_word, wrap, wrapped_pairs)
 from driftscreen.report.taxa import TAXA_LEGEND, TAXA_METHODS, screen_taxa_lines, taxa_lines
-from driftscreen.statistics.registry import COMBINED, statistic_class
+from driftscreen.statistics.registry import COMBINED, reported_only, statistic_class
 from driftscreen.version import __version__
 
 if TYPE_CHECKING:
@@ -447,6 +447,14 @@ def any_taxon_scan(run: ScreenResult) -> bool:
     return any(o.result is not None and o.result.taxa is not None for o in run.outcomes)
 
 
+def combined_statistics_text() -> str:
+    """Which statistics enter ``combined``: all, or all but those reported only."""
+    left_out = [cls.title.lower() for cls in reported_only()]
+    if not left_out:
+        return "all statistics"
+    return f"all statistics but {' and '.join(left_out)} (reported, not combined)"
+
+
 def statistic_methods(name: str, groupings: int) -> str:
     """What statistic ``name`` measures, for the methods paragraph (its name if unknown)."""
     cls = statistic_class(name)
@@ -488,7 +496,7 @@ def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
         "abundance distribution with the stationary law were given no p-value for time "
         f"series spanning fewer than {withheld_below(settings.null)} correlation times "
         "(fitted rate x span), where their calibration is unreliable. Per dataset, the "
-        "p-values of all statistics but dispersion heterogeneity (reported, not combined) "
+        f"p-values of {combined_statistics_text()} "
         "were combined by their harmonic mean p-value (Wilson 2019, Proc. Natl. Acad. Sci. USA "
         "116:1195), calibrated against the replicates' leave-one-out p-values, and q-values "
         "were computed per statistic across datasets by the Benjamini-Hochberg procedure "

@@ -42,6 +42,11 @@ def statistic_class(name: str) -> type[Statistic] | None:
     return next((cls for cls in STATISTIC_CLASSES if cls.name == name), None)
 
 
+def reported_only() -> tuple[type[Statistic], ...]:
+    """The registered classes whose p-value is reported but stays out of ``combined``."""
+    return tuple(cls for cls in STATISTIC_CLASSES if not cls.in_combination)
+
+
 def get_statistic(name: str, **options: object) -> Statistic:
     """The statistic called ``name``, built with ``options`` (its dataclass fields).
 

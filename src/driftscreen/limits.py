@@ -1,15 +1,16 @@
 """Limits written once: what the library accepts is what the command line accepts.
 
-* The smallest analysable design (:func:`unanalysable_reason`), applied by
-  :func:`driftscreen.calibrate.neutrality_test`, the screen, power analyses and influence.
+* The smallest analysable design (:func:`shortfall`, worded by :func:`unanalysable_reason`),
+  applied by :func:`driftscreen.calibrate.neutrality_test`, the screen, power analyses and
+  influence.
 * The largest read count (:data:`MAX_READS`), per cell, per sample and per stated depth:
   no sequencing run comes near it, and every count below it is exact in float64 and
   int64, so no cast can wrap.
 * The longest span of sampling times (:data:`MAX_SPAN_DAYS`).
 * The ranges of the options (:class:`IntegerRange`, :class:`NumberRange`), checked by the
-  library (:class:`driftscreen.calibrate.CalibrationSettings`,
-  :class:`driftscreen.synthetic.DesignSpec`, the simulate command) and used by the argument
-  parser.
+  library (:class:`driftscreen.results.CalibrationSettings`,
+  :class:`driftscreen.synthetic.DesignSpec`, the simulate command, the niche models) and used
+  by the argument parser.
 """
 
 from __future__ import annotations

@@ -9,6 +9,7 @@ import pytest
 
 from driftscreen.cli import build_parser, main, option_names
 from driftscreen.errors import InputError
+from driftscreen.intake import read_datasets
 from driftscreen.intake.reader import CHOICES as INTAKE_CHOICES
 from driftscreen.limits import SIGMA
 from driftscreen.neutral.model import START_CHOICES
@@ -61,3 +62,14 @@ def test_sigma_excludes_two():
     Nat. Commun. 11:4743): finite only below 2."""
     assert 0.0 in SIGMA and 1.999 in SIGMA and 2.0 not in SIGMA and -0.1 not in SIGMA
     assert SIGMA.interval() == "[0, 2)" and SIGMA.describe() == "a number in [0, 2)"
+
+
+def test_intake_names_the_parameter_and_the_command_line_the_option(tmp_path, capsys):
+    counts = tmp_path / "counts.tsv"
+    counts.write_text("taxon\tS1\tS2\tS3\nA\t1\t2\t3\nB\t4\t5\t6\n", encoding="utf-8")
+    with pytest.raises(InputError) as caught:
+        read_datasets(counts, rank="genus")
+    assert str(caught.value).startswith("parameter rank: needs lineages to aggregate taxa")
+    assert main(["test", str(counts), "--rank", "genus"]) == 2
+    assert capsys.readouterr().err.startswith(
+        "driftscreen: error: option --rank: needs lineages to aggregate taxa")

@@ -180,21 +180,21 @@ def check_options(metadata: object, sample_id: str | None, dataset_by: Sequence[
                   lineage: str | None, rank: str | None, taxon_map: object) -> None:
     """Option combinations that cannot work, reported before any file is read."""
     if metadata is None:
-        for option, value in (("--sample-id", sample_id), ("--dataset-by", dataset_by or None),
-                              ("--time-by", time_by), ("--depth-by", depth_by)):
+        for name, value in (("sample_id", sample_id), ("dataset_by", dataset_by or None),
+                            ("time_by", time_by), ("depth_by", depth_by)):
             if value is not None:
-                raise InputError("needs a metadata table", file=f"option {option}",
+                raise InputError("needs a metadata table", parameter=name,
                                  fix="give --metadata FILE")
     if depth is not None:
         check_depth_number(depth)
         if depth_by is not None:
-            raise InputError("--depth and --depth-by are both given", file="option --depth",
+            raise InputError("--depth and --depth-by are both given", parameter="depth",
                              fix="give one of them")
     if lineage is not None and taxon_map is not None:
-        raise InputError("--lineage and --taxon-map are both given", file="option --lineage",
+        raise InputError("--lineage and --taxon-map are both given", parameter="lineage",
                          fix="give one of them")
     if rank is not None and lineage is None and taxon_map is None:
-        raise InputError("needs lineages to aggregate taxa", file="option --rank",
+        raise InputError("needs lineages to aggregate taxa", parameter="rank",
                          fix="give --lineage COLUMN or --taxon-map FILE")
 
 
@@ -203,14 +203,14 @@ def check_depth_number(depth: object) -> None:
     try:
         value = float(depth)  # type: ignore[arg-type]
     except (TypeError, ValueError):
-        raise InputError(f"non-numeric depth '{depth}'", file="option --depth",
+        raise InputError(f"non-numeric depth '{depth}'", parameter="depth",
                          fix="give the number of reads per sample, e.g. --depth 10000") from None
     if not (math.isfinite(value) and value > 0):
-        raise InputError(f"depth {depth} is not a positive number", file="option --depth",
+        raise InputError(f"depth {depth} is not a positive number", parameter="depth",
                          fix="give the number of reads per sample, e.g. --depth 10000")
     if value > MAX_READS:
         raise InputError(f"depth {depth} is more reads than any sequencing run gives (at most "
-                         f"{MAX_READS_TEXT})", file="option --depth",
+                         f"{MAX_READS_TEXT})", parameter="depth",
                          fix="give the number of reads per sample, e.g. --depth 10000")
 
 
@@ -232,7 +232,7 @@ def read_count_table(counts: str | os.PathLike, layout: str, orientation: str,
     if layout == "long" or (layout == "auto" and is_long(text, lineage)):
         if orientation != "auto":
             raise InputError(f"applies to wide tables only, but {text.label} is a long table",
-                             file="option --orientation", fix="drop it, or give --layout wide")
+                             parameter="orientation", fix="drop it, or give --layout wide")
         return read_long(text, lineage)
     return read_wide(text, orientation, lineage, None if meta is None else meta.ids())
 

@@ -85,7 +85,7 @@ def require_matplotlib() -> None:
     try:
         import matplotlib  # noqa: F401
     except ImportError:
-        raise InputError("figures need matplotlib", file="option --figures",
+        raise InputError("figures need matplotlib", parameter="figures",
                          fix="pip install 'driftscreen[plot]'") from None
 
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 import time
 
 from driftscreen.calibrate import CalibrationSettings
-from driftscreen.commands import neutral_collection
+from driftscreen.synthetic import neutral_collection
 from driftscreen.power import PowerDesign, detectable_line, power_curve
 from driftscreen.synthetic import DesignSpec
 

@@ -1,7 +1,7 @@
 """Wall time of `driftscreen screen` with one and two jobs (run by hand).
 
 Simulates N neutral time series (default 100) of 40 taxa x 100 daily samples with
-``neutral_collection``, writes them as one table, screens them with B = 199 replicates
+``driftscreen.synthetic.neutral_collection``, writes them as one table, screens them with B = 199 replicates
 with --jobs 1 and with --jobs 2 (loky), and prints both wall times, the speedup, the time
 per dataset and whether the two runs wrote byte-identical results.tsv. Worker processes
 use one BLAS thread each, so the speedup measures the parallel layout on a 2-core machine.
@@ -26,7 +26,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from driftscreen.commands import neutral_collection, screen_command, write_collection
+from driftscreen.commands import screen_command
+from driftscreen.synthetic import neutral_collection, write_collection
 from driftscreen.synthetic import DesignSpec
 
 N_TAXA = 40

@@ -18,11 +18,12 @@ from driftscreen import seeds
 from driftscreen.calibrate import (CalibrationSettings, neutrality_test, observed_diagnostics,
                                    plan_calibration, storable_table, with_neutral_taylor_line)
 from driftscreen.cli import main
-from driftscreen.commands import neutral_collection, write_collection
+from driftscreen.synthetic import neutral_collection, write_collection
 from driftscreen.dataset import Design
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import simulate
-from driftscreen.report.text import WIDTH, volatility_classes
+from driftscreen.report.format import WIDTH
+from driftscreen.report.text import volatility_classes
 from driftscreen.serialize import result_from_dict, result_to_dict
 from driftscreen.statistics.stationary_divergence import StationaryDivergence
 from driftscreen.store import RECORDS_FOLDER, STORE_FOLDER
@@ -322,7 +323,7 @@ def test_volatility_classes_partition_the_weighted_groupings(series_result):
 
 
 def test_percentages_never_round_a_share_to_none_or_all():
-    from driftscreen.report.text import percent
+    from driftscreen.report.format import percent
 
     assert [percent(v) for v in (0.0, 0.001, 0.25, 0.996, 1.0, float("nan"))] == [
         "0%", "<1%", "25%", ">99%", "100%", "-"]

@@ -13,7 +13,7 @@ import pytest
 
 from driftscreen.calibrate import neutrality_test
 from driftscreen.cli import main
-from driftscreen.commands import neutral_collection, write_collection
+from driftscreen.synthetic import neutral_collection, write_collection
 from driftscreen.errors import InputError
 from driftscreen.report import figures
 from driftscreen.report.figures import figure_paths, figure_stem, write_figures

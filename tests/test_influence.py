@@ -17,7 +17,7 @@ from driftscreen import calibrate
 from driftscreen.calibrate import (COMBINED, CalibrationSettings, assemble, plan_calibration,
                                    run_tasks)
 from driftscreen.cli import main
-from driftscreen.commands import neutral_collection, write_collection
+from driftscreen.synthetic import neutral_collection, write_collection
 from driftscreen.dataset import Dataset, Design
 from driftscreen.influence import (LEVEL, NOTE_PREFIX, observed_statistics, outlyingness,
                                    plan_influence, sample_influence, wants_influence,
@@ -25,7 +25,7 @@ from driftscreen.influence import (LEVEL, NOTE_PREFIX, observed_statistics, outl
 from driftscreen.intake import read_datasets
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import simulate
-from driftscreen.report.text import WIDTH
+from driftscreen.report.format import WIDTH
 from driftscreen.screen import DatasetOutcome, outcome_from_dict, outcome_to_dict
 from driftscreen.serialize import influence_to_dict, result_from_dict, result_to_dict
 from driftscreen.store import ResultStore, settings_fingerprint

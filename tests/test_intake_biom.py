@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from driftscreen.cli import main
+from driftscreen.cli import build_parser, main, option_names
 from driftscreen.dataset import Dataset
 from driftscreen.errors import InputError
 from driftscreen.intake import read_datasets
@@ -468,7 +468,7 @@ def test_bad_biom_input_is_one_line_naming_file_place_and_fix(tmp_path, make, op
     before = sha(path)
     with pytest.raises(InputError) as caught:
         read_datasets(path, **options)
-    message = str(caught.value)
+    message = caught.value.one_line(option_names(build_parser()))  # as the command line words it
     assert "\n" not in message and ";" in message
     assert re.search(pattern, message), message
     assert sha(path) == before

@@ -17,9 +17,12 @@ import pytest
 
 from cli_run import run_cli
 
+from driftscreen.cli import build_parser, option_names
 from driftscreen.errors import InputError
 from driftscreen.intake import read_datasets
 
+#: How the command line words the library's parameters.
+OPTIONS = option_names(build_parser())
 GOOD = "taxon\tS1\tS2\tS3\nA\t1\t2\t3\nB\t4\t5\t6\n"
 META = "sample\tday\tsite\nS1\t1\tx\nS2\t2\tx\nS3\t3\tx\n"
 LONG = "sample\ttaxon\tcount\nS1\tA\t1\nS2\tA\t2\nS3\tA\t3\nS1\tB\t4\nS2\tB\t5\nS3\tB\t6\n"
@@ -334,12 +337,14 @@ def test_bad_input_gives_one_line_error(tmp_path, case):
     before = checksums(tmp_path)
     with pytest.raises(InputError) as caught:
         read_datasets(counts, **kwargs)
-    message = str(caught.value)
+    error = caught.value
+    message = error.one_line(OPTIONS)  # as the command line words it
     assert "\n" not in message and "\r" not in message
     assert re.search(case.pattern, message), message
-    error = caught.value
-    assert error.file and error.fix, message  # a file (or option) and a fix are always named
-    assert message.startswith(error.file) and message.endswith(error.fix)
+    # a file (or a parameter, which the command line words as its option) and a fix
+    assert (error.file or error.parameter) and error.fix, message
+    assert str(error).startswith(error.file or f"parameter {error.parameter}: ")
+    assert message.endswith(error.fix)
     assert "Traceback" not in message and "pandas" not in message.lower()
     assert checksums(tmp_path) == before  # input files are never modified
 

@@ -7,7 +7,7 @@ import pytest
 
 from driftscreen.calibrate import CalibrationSettings, neutrality_test
 from driftscreen.cli import build_parser
-from driftscreen.commands import power_design
+from driftscreen.cli import power_design
 from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
 from driftscreen.limits import MAX_READS, NOT_ANALYSED, unanalysable_reason

@@ -15,12 +15,13 @@ from scipy import stats
 from driftscreen import calibrate, commands, power
 from driftscreen.calibrate import CalibrationSettings
 from driftscreen.cli import main
-from driftscreen.commands import neutral_collection, write_collection
+from driftscreen.synthetic import neutral_collection, write_collection
+from driftscreen.neutral.model import NullOptions
 from driftscreen.niche import StochasticLogistic
 from driftscreen.power import (NicheAlternative, PowerDesign, PowerTask,
                                minimum_detectable_strength, power_curve, simulated_dataset,
                                wilson_interval)
-from driftscreen.report.text import WIDTH
+from driftscreen.report.format import WIDTH
 from driftscreen.store import SETTINGS_FILE, STORE_FOLDER
 from driftscreen.synthetic import DesignSpec, as_dataset
 
@@ -114,11 +115,11 @@ def test_bisection_finds_the_same_crossing_as_the_full_curve(monkeypatch):
         def combined_power(self):
             return np.array([curve(self.strength)])
 
-    def fake_power_curve(design, alternative, strengths, *args):
+    def fake_power_with(design, alternative, strengths, *args, **kwargs):
         calls.append(strengths[0])
         return FakeRun(strengths[0])
 
-    monkeypatch.setattr(power, "power_curve", fake_power_curve)
+    monkeypatch.setattr(power, "power_with", fake_power_with)
     settings = CalibrationSettings(replicates=19, groupings=10)
     found = power.bisect_detectable(TINY_SERIES, NicheAlternative(), grid, 4, settings, 1, 0.05)
     expected = minimum_detectable_strength(grid, [curve(s) for s in grid])
@@ -357,7 +358,7 @@ def test_detectable_line_describes_the_design_and_the_quick_run():
 
 def test_test_command_adds_the_line_only_when_not_rejected(monkeypatch):
     """The note is added after the test, before the report is rendered."""
-    real_test = calibrate.neutrality_test
+    real_test = calibrate.run_calibration
 
     def with_combined_pvalue(pvalue):
         def run(*args, **kwargs):
@@ -370,11 +371,11 @@ def test_test_command_adds_the_line_only_when_not_rejected(monkeypatch):
                         lambda dataset, settings, jobs: "With this design (stub), a line.")
     dataset = neutral_collection(1, DesignSpec(n_samples=15, interval=None, depth=900), 8,
                                  40.0, 0.3, seed=8, prefix="lake")[0]
-    monkeypatch.setattr(calibrate, "neutrality_test", with_combined_pvalue(0.5))
+    monkeypatch.setattr(calibrate, "run_calibration", with_combined_pvalue(0.5))
     report = commands.test_command(dataset, replicates=19, groupings=10, seed=0, jobs=1,
                                    detectable=True)
     assert "With this design (stub), a line." in report.split("Notes")[1]
-    monkeypatch.setattr(calibrate, "neutrality_test", with_combined_pvalue(0.05))
+    monkeypatch.setattr(calibrate, "run_calibration", with_combined_pvalue(0.05))
     report = commands.test_command(dataset, replicates=19, groupings=10, seed=0, jobs=1,
                                    detectable=True)
     assert power.DETECTABLE_PREFIX not in report
@@ -420,3 +421,21 @@ def test_screen_detectable_lines_are_stored_and_fingerprinted(neutral_tables, tm
     capsys.readouterr()
     assert main(args) == 2
     assert_one_error_line(capsys, "detectable")
+
+
+def test_the_detectable_line_keeps_the_null_options(monkeypatch):
+    """The quick power run calibrates with the dataset's settings, its null's options included."""
+    seen = []
+
+    def record(dataset, settings, **kwargs):
+        seen.append(settings)
+        raise RuntimeError("recorded")  # the task fails and counts as not rejected
+
+    monkeypatch.setattr(power, "run_calibration", record)
+    dataset = neutral_collection(1, DesignSpec(n_samples=12, interval=1.0, depth=900), 6,
+                                 40.0, 0.3, seed=5, prefix="lake")[0]
+    settings = CalibrationSettings(groupings=10, seed=4,
+                                   null=NullOptions(noise="off", start="stationary"))
+    line = power.detectable_line(dataset, settings, n_datasets=1, replicates=9)
+    assert "is not detected" in line
+    assert seen and all(used == replace(settings, replicates=9) for used in seen)

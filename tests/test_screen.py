@@ -17,9 +17,9 @@ from scipy import stats
 from driftscreen import __version__, calibrate
 from driftscreen.calibrate import CalibrationSettings
 from driftscreen.cli import main
-from driftscreen.commands import neutral_collection, write_collection
+from driftscreen.synthetic import neutral_collection, write_collection
 from driftscreen.report.tables import RESULTS_COLUMNS
-from driftscreen.report.text import WIDTH
+from driftscreen.report.format import WIDTH
 from driftscreen.screen import screen
 from driftscreen.serialize import result_to_dict
 from driftscreen.store import STORE_FOLDER, RECORDS_FOLDER

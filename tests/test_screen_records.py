@@ -10,10 +10,10 @@ import numpy as np
 import pytest
 
 from driftscreen.calibrate import neutrality_test, summarize_dataset
-from driftscreen.commands import neutral_collection
+from driftscreen.synthetic import neutral_collection
 from driftscreen.dataset import Design
-from driftscreen.report.text import duration_text
-from driftscreen.screen import (DatasetOutcome, Progress, outcome_from_dict, outcome_to_dict,
+from driftscreen.progress import Progress, duration_text
+from driftscreen.screen import (DatasetOutcome, outcome_from_dict, outcome_to_dict,
                                 unanalysable_reason)
 from driftscreen.serialize import (float_from_json, float_to_json, result_from_dict,
                                    result_to_dict)

@@ -9,6 +9,7 @@ from scipy import special, stats
 
 from driftscreen.neutral.fit import fitted_model
 from driftscreen.neutral.model import NeutralModel
+from driftscreen.statistics.composition import precision_weighted_composition
 from driftscreen.statistics.stationary_divergence import (
     StationaryDivergence,
     class_edges,
@@ -17,7 +18,6 @@ from driftscreen.statistics.stationary_divergence import (
     kl_divergence,
     miller_madow_bias,
     observed_class_frequencies,
-    precision_weighted_composition,
     zero_probability,
 )
 from test_statistics_synthetic import (

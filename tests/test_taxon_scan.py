@@ -12,11 +12,11 @@ from scipy import stats
 
 from driftscreen.calibrate import neutrality_test
 from driftscreen.cli import main
-from driftscreen.commands import neutral_collection, write_collection
+from driftscreen.synthetic import neutral_collection, write_collection
 from driftscreen.dataset import Dataset, Design
 from driftscreen.neutral.model import NullFit
 from driftscreen.report.tables import TAXA_COLUMNS, result_taxa_tsv
-from driftscreen.report.text import WIDTH
+from driftscreen.report.format import WIDTH
 from driftscreen.serialize import result_from_dict, result_to_dict
 from driftscreen.synthetic import DesignSpec
 from driftscreen.taxon_scan import (MIN_SHAPE, SMALLEST_RATIO, TaxonScan, across_datasets, detection_depths,

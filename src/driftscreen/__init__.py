@@ -12,15 +12,14 @@ The public API mirrors the command line:
 - :class:`StochasticLogistic`, :class:`NoisyLotkaVolterra`: niche alternatives for power analysis.
 """
 
-__version__ = "0.1.0"
-
-from driftscreen.calibrate import neutrality_test  # noqa: E402
-from driftscreen.dataset import Dataset, Design  # noqa: E402
-from driftscreen.errors import InputError  # noqa: E402
-from driftscreen.intake import read_datasets, write_tables  # noqa: E402
-from driftscreen.neutral import NeutralModel, NullFit, simulate  # noqa: E402
-from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic  # noqa: E402
-from driftscreen.results import NeutralityResult, StatisticResult  # noqa: E402
+from driftscreen.calibrate import neutrality_test
+from driftscreen.dataset import Dataset, Design
+from driftscreen.errors import InputError
+from driftscreen.intake import read_datasets, write_tables
+from driftscreen.neutral import NeutralModel, NullFit, simulate
+from driftscreen.niche import NoisyLotkaVolterra, StochasticLogistic
+from driftscreen.results import NeutralityResult, StatisticResult
+from driftscreen.version import __version__
 
 __all__ = [
     "Dataset", "Design", "InputError", "NeutralModel", "NeutralityResult", "NoisyLotkaVolterra",

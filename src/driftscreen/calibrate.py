@@ -37,8 +37,7 @@ from joblib import Parallel, delayed
 
 from driftscreen import seeds
 from driftscreen.dataset import Dataset, Design
-from driftscreen.limits import (GROUPINGS, JOBS, READ_PRECISION, REPLICATES, SEED,
-                               check_analysable)
+from driftscreen.limits import JOBS, check_analysable
 from driftscreen.neutral.fit import (
     CONDITIONED_MIN_SPAN,
     NOISE_GRID,
@@ -55,6 +54,7 @@ from driftscreen.neutral.model import (
 )
 from driftscreen.neutral.simulate import simulate, simulate_conditioned
 from driftscreen.results import (
+    CalibrationSettings,
     DatasetSummary,
     NeutralityResult,
     ParameterEstimate,
@@ -63,10 +63,9 @@ from driftscreen.results import (
 from driftscreen.statistics.base import Statistic, is_studentised
 from driftscreen.statistics.combination import harmonic_mean_pvalue
 from driftscreen.statistics.fluctuation_scaling import taylor_fit
-from driftscreen.statistics.registry import default_statistics
+from driftscreen.statistics.registry import COMBINED, default_statistics
 from driftscreen.taxon_scan import TaxonScan, scan_table, taxon_scan_for
 
-COMBINED = "combined"
 #: Neutral replicates in the pilot that measures the bias of the theta and rate estimators.
 PILOT_REPLICATES = 64
 #: Largest factor by which the bias correction may move an estimate.
@@ -87,23 +86,6 @@ NOT_COMBINED_NOTE = "not part of the combined test"
 CHUNK_CELLS = 2_000_000
 #: Significant digits of the numbers kept in the diagnostic tables of a result.
 DIAGNOSTIC_DIGITS = 6
-
-
-@dataclass(frozen=True)
-class CalibrationSettings:
-    """Settings of one calibration run; part of every result's provenance."""
-
-    replicates: int = 999
-    groupings: int = 200
-    seed: int = 0
-    null: NullOptions = NullOptions()
-
-    def __post_init__(self) -> None:
-        REPLICATES.check("replicates", self.replicates)
-        GROUPINGS.check("groupings", self.groupings)
-        SEED.check("seed", self.seed)
-        if not isinstance(self.null.noise, str):
-            READ_PRECISION.check("a fixed read precision", self.null.noise)
 
 
 @dataclass(frozen=True)
@@ -603,8 +585,9 @@ def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityRes
     return NeutralityResult(
         dataset=summarize_dataset(plan.dataset), model=model,
         statistics=calibrate_statistics(plan, null, null_scales), parameters=parameters,
-        replicates=plan.settings.replicates, seed=plan.settings.seed, notes=model.flags,
-        diagnostics=observed_diagnostics(plan), taxa=taxon_results(plan, outputs))
+        settings=plan.settings, notes=model.flags, diagnostics=observed_diagnostics(plan),
+        taxa=taxon_results(plan, outputs),
+        statistic_options=tuple(repr(stat) for stat in plan.statistics))
 
 
 def taxon_results(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> pd.DataFrame | None:
@@ -657,13 +640,32 @@ def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int =
     InputError
         A design too small to analyse (:func:`driftscreen.limits.unanalysable_reason`).
     """
-    check_analysable(dataset)
-    JOBS.check("jobs", jobs)
+    check_test_input(dataset, jobs)
     settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed,
                                    null=NullOptions(noise=noise, start=start))
+    return run_calibration(dataset, settings, jobs=jobs, statistics=statistics)
+
+
+def check_test_input(dataset: Dataset, jobs: int) -> None:
+    """The input check of a test of one dataset: an analysable design, ``jobs`` >= 1.
+
+    Raises
+    ------
+    InputError
+        A design too small to analyse (:func:`driftscreen.limits.unanalysable_reason`).
+    ValueError
+        ``jobs`` out of :data:`driftscreen.limits.JOBS`.
+    """
+    check_analysable(dataset)
+    JOBS.check("jobs", jobs)
+
+
+def run_calibration(dataset: Dataset, settings: CalibrationSettings, *, jobs: int = 1,
+                    statistics: tuple[Statistic, ...] | None = None) -> NeutralityResult:
+    """The calibrated test of a checked dataset (:func:`neutrality_test` without its input
+    check); ``jobs`` is the ``n_jobs`` of the joblib backend in use."""
     plan = plan_calibration(dataset, settings, statistics)
-    outputs = run_tasks(plan.tasks, jobs)
-    return assemble(plan, outputs)
+    return assemble(plan, run_tasks(plan.tasks, jobs))
 
 
 def run_tasks(tasks: tuple[ChunkTask, ...], jobs: int) -> list[ChunkOutput]:

@@ -13,14 +13,24 @@ import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
 
-from driftscreen import __version__
+from driftscreen.commands import power_command, screen_command, simulate_command, test_command
+from driftscreen.dataset import Dataset
+from driftscreen.demo import run_demo as demo
 from driftscreen.errors import InputError
+from driftscreen.intake import intake_defaults, read_datasets
+from driftscreen.intake.reader import CHOICES as INTAKE_CHOICES
 from driftscreen.limits import (DEPTH_SPREAD, GROUPINGS, INTERVAL, JOBS, MAX_READS,
                                MAX_READS_TEXT, READ_PRECISION, READS, REPLICATES, SEED, THETA,
-                               IntegerRange, NumberRange)
-from driftscreen.neutral.model import START_CHOICES, NullOptions
+                               IntegerRange, NumberRange, check_analysable)
+from driftscreen.neutral.model import NOISE_CHOICES, START_CHOICES, NullOptions
+from driftscreen.power import ALTERNATIVES, PowerDesign
+from driftscreen.screen import BACKENDS
+from driftscreen.synthetic import MODELS, check_design_span
+from driftscreen.version import __version__
 
 EXIT_INPUT = 2
+#: Options of the library's parameters whose names differ from the option's.
+PARAMETER_OPTIONS = {"n_taxa": "--taxa", "n_samples": "--samples", "n_datasets": "--datasets"}
 
 
 class Parser(argparse.ArgumentParser):
@@ -79,7 +89,7 @@ def read_depth(text: str) -> float:
 
 def read_noise(text: str) -> str | float:
     """--read-noise: 'estimate', 'off' or a Dirichlet-multinomial precision C."""
-    if text in ("estimate", "off"):
+    if text in NOISE_CHOICES:
         return text
     try:
         value = float(text)
@@ -148,14 +158,14 @@ def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = F
                        help="one sequencing depth for every sample (relative-abundance tables)"
                             + ("; without COUNTS: median reads per sample of the design"
                                if optional_counts else ""))
-    group.add_argument("--abundance", choices=["auto", "counts", "fraction", "percent"],
+    group.add_argument("--abundance", choices=INTAKE_CHOICES["abundance"],
                        default="auto", help="what the table holds (default: detect)")
-    group.add_argument("--remainder", choices=["auto", "pool", "renormalise"], default="auto",
+    group.add_argument("--remainder", choices=INTAKE_CHOICES["remainder"], default="auto",
                        help="relative rows summing below 1: pool the rest as taxon 'other' "
                             "(default) or renormalise")
-    group.add_argument("--layout", choices=["auto", "wide", "long"], default="auto",
+    group.add_argument("--layout", choices=INTAKE_CHOICES["layout"], default="auto",
                        help="wide (taxa x samples) or long (sample, taxon, count) table")
-    group.add_argument("--orientation", choices=["auto", "taxa-rows", "taxa-columns"],
+    group.add_argument("--orientation", choices=INTAKE_CHOICES["orientation"],
                        default="auto", help="for wide tables: are taxa rows or columns")
     group.add_argument("--lineage", metavar="COL",
                        help="table column (BIOM: observation metadata field) with "
@@ -168,19 +178,31 @@ def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = F
 
 
 def intake_options(args: argparse.Namespace) -> dict:
-    """The keyword options of ``read_datasets`` given by :func:`add_input_options`."""
-    return dict(layout=args.layout, orientation=args.orientation, sample_id=args.sample_id,
-                dataset_by=args.dataset_by, time_by=args.time_by, depth_by=args.depth_by,
-                depth=args.depth, abundance=args.abundance, remainder=args.remainder,
-                lineage=args.lineage, rank=args.rank, taxon_map=args.taxon_map)
+    """The keyword options of ``read_datasets`` given by :func:`add_input_options` (each
+    option's destination is the parameter's name)."""
+    return {name: getattr(args, name) for name in intake_defaults()}
 
 
-def read_input(args: argparse.Namespace) -> list:
+def read_input(args: argparse.Namespace) -> list[Dataset]:
     """Every dataset of the table, however small: the analysis applies the size limits."""
-    from driftscreen.intake import read_datasets
-
     return read_datasets(args.counts, args.metadata, **intake_options(args), min_samples=1,
                          min_taxa=1)
+
+
+def choose_dataset(datasets: Sequence[Dataset], name: str | None, source: str) -> Dataset:
+    """The one dataset `driftscreen test` works on."""
+    if name is None:
+        if len(datasets) == 1:
+            return datasets[0]
+        listed = ", ".join(d.name for d in datasets[:3]) + (", ..." if len(datasets) > 3 else "")
+        raise InputError(f"the table holds {len(datasets)} datasets ({listed})",
+                         file=source, fix="choose one with --dataset NAME, or use "
+                                          "`driftscreen screen` to test them all")
+    for dataset in datasets:
+        if dataset.name == name:
+            return dataset
+    raise InputError(f"no dataset named '{name}'", file=source, place="option --dataset",
+                     fix="use one of: " + ", ".join(d.name for d in datasets[:10]))
 
 
 def add_calibration_options(parser: argparse.ArgumentParser, replicates: int = 999,
@@ -249,7 +271,7 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
                         "(default 0.2)")
     p.add_argument("--datasets", type=positive_int, default=1,
                    help="number of datasets written into the one table (default 1)")
-    p.add_argument("--model", choices=["neutral", "logistic", "lotka-volterra"],
+    p.add_argument("--model", choices=MODELS,
                    default="neutral",
                    help="neutral (default), or a niche alternative: the stochastic logistic "
                         "model or the noisy Lotka-Volterra community (see docs/power.md)")
@@ -262,8 +284,6 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
 
 
 def run_simulate(args: argparse.Namespace) -> int:
-    from driftscreen.commands import simulate_command
-
     if args.strength is not None and args.model == "neutral":
         raise InputError("a strength applies only to a niche model", place="option --strength",
                          fix="add --model logistic or --model lotka-volterra, or drop --strength")
@@ -300,8 +320,6 @@ def add_test(sub: argparse._SubParsersAction) -> None:
 
 
 def run_test(args: argparse.Namespace) -> int:
-    from driftscreen.commands import choose_dataset, test_command
-
     dataset = choose_dataset(read_input(args), args.dataset, args.counts)
     report = test_command(dataset, replicates=args.replicates, groupings=args.groupings,
                           seed=args.seed, jobs=args.jobs, output=args.output,
@@ -330,7 +348,7 @@ def add_screen(sub: argparse._SubParsersAction) -> None:
     add_null_options(p)
     p.add_argument("--out", metavar="DIR", required=True,
                    help="output folder (created if needed); also holds the resume store")
-    p.add_argument("--backend", choices=["loky", "dask"], default="loky",
+    p.add_argument("--backend", choices=BACKENDS, default="loky",
                    help="parallel backend: worker processes on this machine (loky, default) "
                         "or a Dask cluster (needs driftscreen[dask])")
     p.add_argument("--scheduler", metavar="ADDRESS",
@@ -354,8 +372,6 @@ def screen_figures_folder(args: argparse.Namespace) -> Path | None:
 
 
 def run_screen(args: argparse.Namespace) -> int:
-    from driftscreen.commands import screen_command
-
     try:
         paths = screen_command(
             args.counts, args.metadata, out=Path(args.out), intake=intake_options(args),
@@ -411,7 +427,7 @@ def add_power(sub: argparse._SubParsersAction) -> None:
     group.add_argument("--depth-spread", metavar="S", type=number_in(DEPTH_SPREAD),
                        help="standard deviation of log depth across samples (default 0)")
     group = p.add_argument_group("alternative")
-    group.add_argument("--alternative", choices=["logistic", "lotka-volterra"],
+    group.add_argument("--alternative", choices=ALTERNATIVES,
                        default="logistic",
                        help="niche model: independent stochastic logistic taxa (strength = "
                             "environmental noise sigma) or a competitive Lotka-Volterra "
@@ -436,9 +452,50 @@ def add_power(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(handler=run_power)
 
 
-def run_power(args: argparse.Namespace) -> int:
-    from driftscreen.commands import choose_dataset, power_command, power_design
+def power_design(dataset: Dataset | None, *, n_taxa: int | None, n_samples: int | None,
+                 interval: float | None, irregular: bool, snapshot: bool,
+                 depth: float | None, depth_spread: float | None) -> PowerDesign:
+    """The design of `driftscreen power`: a dataset's, or one from the design options.
 
+    Raises
+    ------
+    InputError
+        Both or neither given, an incomplete or contradictory set of design options, or
+        a design too small to analyse.
+    """
+    given = {"--taxa": n_taxa, "--samples": n_samples, "--interval": interval,
+             "--irregular": irregular or None, "--snapshot": snapshot or None,
+             "--depth-spread": depth_spread}
+    named = [option for option, value in given.items() if value is not None]
+    if dataset is not None:
+        if named:
+            raise InputError("design options cannot be combined with a counts table",
+                             file=f"option {named[0]}",
+                             fix="give either COUNTS (and intake options) or the design "
+                                 "options --taxa, --samples, --interval, --depth")
+        check_analysable(dataset, fix="choose another dataset with --dataset")
+        return PowerDesign.from_dataset(dataset)
+    missing = [option for option, value in (("--taxa", n_taxa), ("--samples", n_samples),
+                                            ("--depth", depth)) if value is None]
+    if interval is None and not snapshot:
+        missing.append("--interval (or --snapshot)")
+    if missing:
+        raise InputError("no design given: missing " + ", ".join(missing),
+                         file="command power",
+                         fix="give a counts table (COUNTS --metadata FILE ...) or all of "
+                             "--taxa K --samples T --interval D --depth N")
+    if snapshot and (interval is not None or irregular):
+        option = "--interval" if interval is not None else "--irregular"
+        raise InputError("a snapshot design has no sampling times", file=f"option {option}",
+                         fix="drop it, or drop --snapshot")
+    check_design_span(n_samples, None if snapshot else interval)
+    return PowerDesign.from_numbers(n_taxa=n_taxa, n_samples=n_samples,
+                                    interval=None if snapshot else interval,
+                                    irregular=irregular, depth=max(int(round(depth)), 1),
+                                    depth_spread=depth_spread or 0.0)
+
+
+def run_power(args: argparse.Namespace) -> int:
     dataset = None
     if args.counts is not None:
         dataset = choose_dataset(read_input(args), args.dataset, args.counts)
@@ -477,8 +534,6 @@ def add_demo(sub: argparse._SubParsersAction) -> None:
 
 
 def run_demo(args: argparse.Namespace) -> int:
-    from driftscreen.demo import run_demo as demo
-
     sys.stdout.write(demo(Path(args.out), replicates=args.replicates, jobs=args.jobs,
                           messages=sys.stderr))
     return 0
@@ -500,13 +555,26 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def option_names(parser: argparse.ArgumentParser) -> dict[str, str]:
+    """The option of every Python parameter the library names in an :class:`InputError`:
+    the option whose destination has its name, or the one of :data:`PARAMETER_OPTIONS`."""
+    names: dict[str, str] = {}
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            for command in action.choices.values():
+                names.update(option_names(command))
+        elif action.option_strings:
+            names.setdefault(action.dest, action.option_strings[-1])
+    return {**names, **PARAMETER_OPTIONS}
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
         return args.handler(args)
     except InputError as error:
-        print(f"driftscreen: error: {error.one_line()}", file=sys.stderr)
+        print(f"driftscreen: error: {error.one_line(option_names(parser))}", file=sys.stderr)
         return EXIT_INPUT
     except KeyboardInterrupt:
         print("driftscreen: interrupted", file=sys.stderr)

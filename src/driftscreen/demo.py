@@ -28,16 +28,17 @@ import numpy as np
 import pandas as pd
 
 from driftscreen import seeds
-from driftscreen.commands import (COUNTS_FILE, METADATA_FILE, PARAMETERS_FILE, REPORT_FILE,
-                                  RESULTS_FILE, RESULTS_JSON_FILE, screen_command)
+from driftscreen.commands import (PARAMETERS_FILE, REPORT_FILE, RESULTS_FILE, RESULTS_JSON_FILE,
+                                  screen_command)
 from driftscreen.dataset import Dataset, Design
 from driftscreen.files import atomic_write_text, check_output_folder
 from driftscreen.intake.writer import counts_frame
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import simulate
 from driftscreen.niche import StochasticLogistic, sequence_counts
-from driftscreen.report.text import ALPHA, WIDTH, qvalue_text, verdict_word
-from driftscreen.synthetic import DesignSpec, metacommunity
+from driftscreen.report.format import ALPHA, WIDTH, qvalue_text, verdict_word
+from driftscreen.statistics.registry import COMBINED
+from driftscreen.synthetic import COUNTS_FILE, METADATA_FILE, DesignSpec, metacommunity
 
 STEADY, PULSED = "steady", "pulsed"
 #: Reactor names and their feed, in output order.
@@ -155,7 +156,7 @@ def combined_qvalues(results_tsv: Path) -> dict[str, float]:
     with results_tsv.open(encoding="utf-8", newline="") as stream:
         rows = csv.DictReader(stream, delimiter="\t")
         return {row["dataset"]: float(row["q_value"]) if row["q_value"] else np.nan
-                for row in rows if row["statistic"] == "combined"}
+                for row in rows if row["statistic"] == COMBINED}
 
 
 def summary_lines(qvalues: dict[str, float]) -> list[str]:

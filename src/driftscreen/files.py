@@ -11,7 +11,7 @@ from __future__ import annotations
 import hashlib
 import os
 import tempfile
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from pathlib import Path
 
 from driftscreen.errors import InputError
@@ -161,3 +161,14 @@ def same_file(path: Path, other: str | os.PathLike) -> bool:
         return path.exists() and os.path.samefile(path, other)
     except OSError:
         return False
+
+
+def check_distinct_outputs(places: Mapping[str, str | os.PathLike | None]) -> None:
+    """No two output places of one command (by option) are the same place."""
+    given = [(option, path) for option, path in places.items() if path]
+    for index, (option, path) in enumerate(given):
+        for earlier, other in given[:index]:
+            if same_place(path, other):
+                raise InputError(f"is also given as {earlier}", file=str(path),
+                                 place=f"option {option}",
+                                 fix=f"give {option} a place of its own")

@@ -51,7 +51,7 @@ from driftscreen.dataset import Dataset, Design
 from driftscreen.limits import NOT_ANALYSED, unanalysable_reason
 from driftscreen.neutral.fit import fit_batch
 from driftscreen.neutral.model import NeutralModel, sampling_variance_factor
-from driftscreen.results import NeutralityResult, SampleInfluence, StatisticResult
+from driftscreen.results import NeutralityResult, SampleInfluence, StatisticResult, rejected
 from driftscreen.statistics.base import Statistic
 from driftscreen.statistics.registry import default_statistics
 
@@ -243,11 +243,6 @@ def plan_influence(dataset: Dataset, result: NeutralityResult, settings: Calibra
 
 
 # ----------------------------------------------------------------------------- stage 3
-def rejected(pvalue: float, level: float = LEVEL) -> bool:
-    """Whether a combined p-value rejects neutrality at ``level`` (NaN never does)."""
-    return bool(np.isfinite(pvalue) and pvalue <= level)
-
-
 def finish_influence(plan: InfluencePlan, result: NeutralityResult,
                      outputs: list[ChunkOutput]) -> SampleInfluence:
     """The record of ``plan`` from its replicate chunks, compared with the full ``result``."""
@@ -255,13 +250,13 @@ def finish_influence(plan: InfluencePlan, result: NeutralityResult,
     pvalue = float(without.statistics[COMBINED].pvalue)
     pvalues = {name: float(stat.pvalue) for name, stat in without.statistics.items()
                if name != COMBINED}
-    changes = rejected(pvalue) != rejected(result.statistics[COMBINED].pvalue)
+    changes = rejected(pvalue, LEVEL) != result.rejected(LEVEL)
     return SampleInfluence(plan.sample, plan.index, plan.score, pvalue, pvalues, changes)
 
 
 def wants_influence(result: NeutralityResult) -> bool:
     """Rejected at :data:`LEVEL` and neither an influence nor a note on why there is none."""
-    return (rejected(result.statistics[COMBINED].pvalue) and result.influence is None
+    return (result.rejected(LEVEL) and result.influence is None
             and not any(note.startswith(NOTE_PREFIX) for note in result.notes))
 
 

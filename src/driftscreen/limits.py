@@ -1,15 +1,16 @@
 """Limits written once: what the library accepts is what the command line accepts.
 
-* The smallest analysable design (:func:`unanalysable_reason`), applied by
-  :func:`driftscreen.calibrate.neutrality_test`, the screen, power analyses and influence.
+* The smallest analysable design (:func:`shortfall`, worded by :func:`unanalysable_reason`),
+  applied by :func:`driftscreen.calibrate.neutrality_test`, the screen, power analyses and
+  influence.
 * The largest read count (:data:`MAX_READS`), per cell, per sample and per stated depth:
   no sequencing run comes near it, and every count below it is exact in float64 and
   int64, so no cast can wrap.
 * The longest span of sampling times (:data:`MAX_SPAN_DAYS`).
 * The ranges of the options (:class:`IntegerRange`, :class:`NumberRange`), checked by the
-  library (:class:`driftscreen.calibrate.CalibrationSettings`,
-  :class:`driftscreen.synthetic.DesignSpec`, the simulate command) and used by the argument
-  parser.
+  library (:class:`driftscreen.results.CalibrationSettings`,
+  :class:`driftscreen.synthetic.DesignSpec`, the simulate command, the niche models) and used
+  by the argument parser.
 """
 
 from __future__ import annotations
@@ -51,21 +52,34 @@ def minimum_samples(time_series: bool) -> int:
     return MIN_SAMPLES_TIME_SERIES if time_series else MIN_SAMPLES_SNAPSHOT
 
 
-def unanalysable_reason(dataset: Dataset) -> str:
-    """Why ``dataset`` cannot be analysed (starting ``"not analysed: "``), or ``""``.
+def shortfall(time_series: bool, n_samples: int, n_taxa: int) -> tuple[str, int] | None:
+    """What a design of this size lacks to be analysable: ``("samples", fewest)`` or
+    ``("taxa", fewest)``; ``None`` when it is analysable.
 
     Time series need at least 4 samples (3 intervals) and snapshots at least 3 samples,
     both at least 2 taxa with reads.
     """
-    minimum = minimum_samples(dataset.is_time_series)
-    kind = "a time series" if dataset.is_time_series else "a snapshot design"
-    if dataset.n_samples < minimum:
+    minimum = minimum_samples(time_series)
+    if n_samples < minimum:
+        return "samples", minimum
+    if n_taxa < MIN_TAXA:
+        return "taxa", MIN_TAXA
+    return None
+
+
+def unanalysable_reason(dataset: Dataset) -> str:
+    """Why ``dataset`` cannot be analysed (starting ``"not analysed: "``), or ``""``
+    (:func:`shortfall`)."""
+    lacking = shortfall(dataset.is_time_series, dataset.n_samples, dataset.n_taxa)
+    if lacking is None:
+        return ""
+    what, minimum = lacking
+    if what == "samples":
+        kind = "a time series" if dataset.is_time_series else "a snapshot design"
         return (f"{NOT_ANALYSED}{kind} needs at least {minimum} samples, this dataset has "
                 f"{dataset.n_samples}")
-    if dataset.n_taxa < MIN_TAXA:
-        return (f"{NOT_ANALYSED}at least {MIN_TAXA} taxa with reads are needed, this dataset "
-                f"has {dataset.n_taxa}")
-    return ""
+    return (f"{NOT_ANALYSED}at least {minimum} taxa with reads are needed, this dataset "
+            f"has {dataset.n_taxa}")
 
 
 def check_analysable(dataset: Dataset, fix: str | None = None) -> None:
@@ -73,7 +87,8 @@ def check_analysable(dataset: Dataset, fix: str | None = None) -> None:
     ``fix`` (default: more samples, or a look at the taxa, as the reason asks)."""
     reason = unanalysable_reason(dataset)
     if reason:
-        few_samples = dataset.n_samples < minimum_samples(dataset.is_time_series)
+        few_samples = shortfall(dataset.is_time_series, dataset.n_samples,
+                                dataset.n_taxa)[0] == "samples"
         raise InputError(reason.removeprefix(NOT_ANALYSED), file=", ".join(dataset.source) or None,
                          place=f"dataset '{dataset.name}'",
                          fix=fix or (FEW_SAMPLES_FIX if few_samples else FEW_TAXA_FIX))
@@ -110,23 +125,33 @@ class IntegerRange:
 
 @dataclass(frozen=True)
 class NumberRange:
-    """The finite numbers an option accepts: ``minimum <= value <= maximum``."""
+    """The finite numbers an option accepts: ``minimum <= value <= maximum`` (``< maximum``
+    with ``open_maximum``)."""
 
     minimum: float
     maximum: float = math.inf
+    open_maximum: bool = False
 
     def __contains__(self, value: object) -> bool:
         try:
             number = float(value)  # type: ignore[arg-type]
         except (TypeError, ValueError):
             return False
-        return math.isfinite(number) and self.minimum <= number <= self.maximum
+        below = number < self.maximum if self.open_maximum else number <= self.maximum
+        return math.isfinite(number) and self.minimum <= number and below
 
     def describe(self) -> str:
-        """``"a number >= 1e-06"`` or ``"a number from 0 to 5"``."""
+        """``"a number >= 1e-06"``, ``"a number from 0 to 5"`` or ``"a number in [0, 2)"``."""
         if math.isinf(self.maximum):
             return f"a number >= {self.minimum:g}"
+        if self.open_maximum:
+            return f"a number in {self.interval()}"
         return f"a number from {self.minimum:g} to {self.maximum:g}"
+
+    def interval(self) -> str:
+        """``"[0, 2)"``, ``"[1e-06, 5]"`` or ``"[0, inf)"``."""
+        closing = ")" if self.open_maximum or math.isinf(self.maximum) else "]"
+        return f"[{self.minimum:g}, {self.maximum:g}{closing}"
 
     def check(self, name: str, value: object) -> None:
         """Raise ValueError (a programming error) if ``value`` is outside the range."""
@@ -146,3 +171,9 @@ READ_PRECISION = NumberRange(1e-6)
 INTERVAL = NumberRange(1e-6, MAX_SPAN_DAYS)
 DEPTH_SPREAD = NumberRange(0.0, 5.0)
 THETA = NumberRange(1e-6, 1e12)
+#: Niche models: the environmental noise sigma of a stochastic logistic taxon (its
+#: stationary Gamma law has squared coefficient of variation sigma / (2 - sigma), finite
+#: below 2; Grilli 2020, Nat. Commun. 11:4743) and of a Lotka-Volterra community, and the
+#: mean competition coefficient of a Lotka-Volterra community.
+SIGMA = NumberRange(0.0, 2.0, open_maximum=True)
+COMPETITION = NumberRange(0.0)

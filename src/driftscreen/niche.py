@@ -33,6 +33,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from driftscreen.dataset import Design
+from driftscreen.limits import COMPETITION, SIGMA
 from driftscreen.neutral.dirichlet import log_standard_gamma
 from driftscreen.neutral.model import NeutralModel
 from driftscreen.neutral.simulate import simulate_abundances
@@ -160,8 +161,9 @@ class StochasticLogistic(_SampledCommunity):
     def __post_init__(self) -> None:
         if self.n_taxa < 1:
             raise ValueError("n_taxa must be at least 1")
-        if not 0.0 <= self.strength < 2.0:
-            raise ValueError(f"strength (sigma) must be in [0, 2), got {self.strength}")
+        if self.strength not in SIGMA:
+            raise ValueError(f"strength (sigma) must be in {SIGMA.interval()}, "
+                             f"got {self.strength}")
         if not self.timescale > 0:
             raise ValueError("timescale must be positive")
         if self.spread_decades < 0:
@@ -343,10 +345,10 @@ class NoisyLotkaVolterra(_SampledCommunity):
     def __post_init__(self) -> None:
         if self.n_taxa < 1:
             raise ValueError("n_taxa must be at least 1")
-        if self.strength < 0:
+        if self.strength not in COMPETITION:
             raise ValueError("strength must be non-negative")
-        if not 0.0 <= self.noise < 2.0:
-            raise ValueError(f"noise must be in [0, 2), got {self.noise}")
+        if self.noise not in SIGMA:
+            raise ValueError(f"noise must be in {SIGMA.interval()}, got {self.noise}")
         if not self.timescale > 0:
             raise ValueError("timescale must be positive")
         if self.spread_decades < 0 or self.immigration < 0 or self.burn_in < 0:

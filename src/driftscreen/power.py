@@ -17,7 +17,6 @@ the number of jobs nor on the other strengths of the grid.
 from __future__ import annotations
 
 import math
-import time
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from typing import TextIO
@@ -28,13 +27,12 @@ from joblib import Parallel, delayed
 from scipy import stats
 
 from driftscreen import seeds
-from driftscreen.calibrate import COMBINED, CalibrationSettings, neutrality_test
+from driftscreen.calibrate import COMBINED, CalibrationSettings, run_calibration
 from driftscreen.dataset import Dataset, Design
 from driftscreen.errors import InputError
-from driftscreen.limits import unanalysable_reason
+from driftscreen.limits import COMPETITION, SIGMA, shortfall, unanalysable_reason
 from driftscreen.niche import LotkaVolterraParameters, NoisyLotkaVolterra, StochasticLogistic
-from driftscreen.report.text import duration_text, number
-from driftscreen.results import NeutralityResult
+from driftscreen.progress import PowerProgress
 from driftscreen.statistics.registry import default_statistics
 from driftscreen.synthetic import DesignSpec, as_dataset
 
@@ -51,13 +49,14 @@ DEFAULT_STRENGTHS = {
     "logistic": (1e-4, 3e-4, 1e-3, 3e-3, 0.01, 0.03, 0.1, 0.3, 1.0),
     "lotka-volterra": (0.01, 0.03, 0.1, 0.2, 0.3, 0.5, 1.0),
 }
+#: How to give a strength each alternative allows.
+STRENGTHS_FIX = (f"for logistic, sigma must be in {SIGMA.interval()}; for lotka-volterra, "
+                 f"the competition must be >= {COMPETITION.minimum:g}")
 #: Settings of the quick power run behind :func:`detectable_line`.
 QUICK_DATASETS = 12
 QUICK_REPLICATES = 99
 #: Start of every detectable line (used to recognise a result that already has one).
 DETECTABLE_PREFIX = "With this design ("
-#: Seconds between two progress lines.
-PROGRESS_EVERY = 5.0
 
 
 # ----------------------------------------------------------------------------- binomial interval
@@ -110,11 +109,6 @@ def minimum_detectable_strength(strengths: Sequence[float], power: Sequence[floa
 
 
 # ----------------------------------------------------------------------------- the design
-def days(value: float) -> str:
-    """``1 day``, ``2.5 days``."""
-    return f"{value:g} day" + ("" if value == 1 else "s")
-
-
 @dataclass(frozen=True)
 class PowerDesign:
     """The design to plan for: taxa, sample times and depths, optionally an abundance profile.
@@ -166,7 +160,19 @@ class PowerDesign:
     @classmethod
     def from_numbers(cls, *, n_taxa: int, n_samples: int, interval: float | None, depth: int,
                      irregular: bool = False, depth_spread: float = 0.0) -> PowerDesign:
-        """A design from numbers; ``interval=None`` makes a snapshot design."""
+        """A design from numbers; ``interval=None`` makes a snapshot design.
+
+        Raises
+        ------
+        InputError
+            A design too small to analyse (:func:`driftscreen.limits.shortfall`).
+        """
+        lacking = shortfall(interval is not None, n_samples, n_taxa)
+        if lacking is not None:
+            what, minimum = lacking
+            count = n_samples if what == "samples" else n_taxa
+            raise InputError(f"{count} {what} are too few to analyse", parameter=f"n_{what}",
+                             fix=f"give at least {minimum}")
         spec = DesignSpec(n_samples=n_samples, interval=interval, irregular=irregular,
                           depth=depth, depth_spread=depth_spread)
         return cls(n_taxa, spec=spec)
@@ -194,39 +200,6 @@ class PowerDesign:
         kind = "samples" if self.is_time_series else "replicate communities"
         return (f"{self.n_taxa} taxa, {self.n_samples} {kind}, median depth "
                 f"{self.median_depth:,.0f} reads")
-
-    def describe(self) -> list[tuple[str, str]]:
-        """Design, taxa, depths and abundances as (key, value) pairs for the report."""
-        if self.fixed is not None:
-            design = self.fixed
-            layout = (f"time series, {self.n_samples} samples over "
-                      f"{number(float(design.times[-1] - design.times[0]))} days"
-                      if design.is_time_series else
-                      f"snapshot, {self.n_samples} replicate communities")
-            depths = (f"min {design.depths.min():,}, median {self.median_depth:,.0f}, "
-                      f"max {design.depths.max():,}")
-            pairs = [("Design", f"{layout}, as in dataset '{self.source}'")]
-        else:
-            spec = self.spec
-            if spec.interval is None:
-                layout = f"snapshot, {spec.n_samples} replicate communities"
-            elif spec.irregular:
-                layout = (f"time series, {spec.n_samples} samples, gamma-distributed gaps "
-                          f"with mean {days(spec.interval)} (drawn anew per dataset)")
-            else:
-                layout = (f"time series, {spec.n_samples} samples, one every "
-                          f"{days(spec.interval)}")
-            depths = (f"median {spec.depth:,}, log-sd {spec.depth_spread:g} (drawn anew per "
-                      "dataset)" if spec.depth_spread > 0 else f"{spec.depth:,} in every sample")
-            pairs = [("Design", layout)]
-        return pairs + [("Taxa", str(self.n_taxa)), ("Depth (reads)", depths)]
-
-    def abundance_text(self, alternative: NicheAlternative) -> str:
-        """Where the carrying capacities of the niche model come from."""
-        if self.profile is not None:
-            return "pooled relative abundances of the dataset (carrying capacities)"
-        return (f"carrying capacities log-uniform over {alternative.spread_decades:g} "
-                "orders of magnitude, drawn per dataset (model default)")
 
 
 # ----------------------------------------------------------------------------- alternatives
@@ -298,8 +271,8 @@ class NicheAlternative:
             raise ValueError(f"alternative must be one of {ALTERNATIVES}, got {self.name!r}")
         if not self.timescale > 0:
             raise ValueError("timescale must be positive")
-        if not 0.0 <= self.noise < 2.0:
-            raise ValueError("noise must be in [0, 2)")
+        if self.noise not in SIGMA:
+            raise ValueError(f"noise must be in {SIGMA.interval()}")
         if self.name == "logistic" and self.noise != 0.0:
             raise ValueError("noise is a setting of the lotka-volterra alternative only")
 
@@ -329,10 +302,10 @@ class NicheAlternative:
 
     def strength_problem(self, strength: float) -> str:
         """Why ``strength`` is not allowed for this alternative, or ``""``."""
-        if not math.isfinite(strength) or strength < 0:
+        if strength not in COMPETITION:
             return f"strength {strength:g} is not a non-negative number"
-        if self.name == "logistic" and strength >= 2.0:
-            return f"strength (sigma) {strength:g} is not below 2"
+        if self.name == "logistic" and strength not in SIGMA:
+            return f"strength (sigma) {strength:g} is not below {SIGMA.maximum:g}"
         return ""
 
     def is_neutral_limit(self, strength: float) -> bool:
@@ -351,25 +324,23 @@ class NicheAlternative:
             return NoisyLotkaVolterra(n_taxa, **options)
         return ProfiledLotkaVolterra(n_taxa, **options, profile=tuple(profile))
 
-    def description(self) -> str:
-        """What the alternative is and what its strength means, for the report."""
-        if self.name == "logistic":
-            return ("independent stochastic logistic taxa (Grilli 2020, Nat. Commun. "
-                    "11:4743), generation time "
-                    f"{days(self.timescale)}. strength = sigma, the environmental noise: each "
-                    "taxon fluctuates around its carrying capacity with a Gamma law of squared "
-                    "coefficient of variation sigma / (2 - sigma); sigma = 0 is a constant "
-                    "community, the neutral limit (theta -> infinity).")
-        text = ("competitive Lotka-Volterra community (Stein et al. 2013, PLoS Comput. "
-                f"Biol. 9:e1003388), generation time {days(self.timescale)}, environmental "
-                f"noise {self.noise:g}. strength = mean competition coefficient C_ij: the "
-                "fraction by which one other taxon at its carrying capacity reduces a "
-                "taxon's growth")
-        if self.noise == 0.0:
-            return text + ("; without noise, strength 0 is a constant community, the "
-                           "neutral limit (theta -> infinity).")
-        return text + (f"; strength 0 is independent logistic taxa with sigma = "
-                       f"{self.noise:g} (not neutral).")
+
+def niche_alternative(name: str, *, timescale: float = 1.0, noise: float | None = None
+                      ) -> NicheAlternative:
+    """The alternative ``name``; ``noise`` (default 0) only for ``"lotka-volterra"``.
+
+    Raises
+    ------
+    InputError
+        A noise for the logistic alternative, or one out of :data:`driftscreen.limits.SIGMA`.
+    """
+    if noise is not None and name != "lotka-volterra":
+        raise InputError("noise is a setting of the lotka-volterra alternative",
+                         parameter="noise", fix="drop it, or choose that alternative")
+    if noise is not None and noise not in SIGMA:
+        raise InputError(f"noise {noise:g} is not in {SIGMA.interval()}", parameter="noise",
+                         fix="give a value such as 0.01")
+    return NicheAlternative(name, timescale=timescale, noise=noise or 0.0)
 
 
 def as_alternative(alternative: str | NicheAlternative) -> NicheAlternative:
@@ -408,19 +379,17 @@ def parse_strengths(text: str, alternative: NicheAlternative) -> tuple[float, ..
            + ",".join(f"{s:g}" for s in alternative.default_strengths()[:4]))
     entries = [entry.strip() for entry in text.split(",") if entry.strip()]
     if not entries:
-        raise InputError("no strengths given", file="option --strengths", fix=fix)
+        raise InputError("no strengths given", parameter="strengths", fix=fix)
     values = []
     for entry in entries:
         try:
             values.append(float(entry))
         except ValueError:
-            raise InputError(f"'{entry}' is not a number", file="option --strengths",
+            raise InputError(f"'{entry}' is not a number", parameter="strengths",
                              fix=fix) from None
         problem = alternative.strength_problem(values[-1])
         if problem:
-            raise InputError(problem, file="option --strengths",
-                             fix="for logistic, sigma must be in [0, 2); for lotka-volterra, "
-                                 "the competition must be >= 0")
+            raise InputError(problem, parameter="strengths", fix=STRENGTHS_FIX)
     return checked_strengths(values, alternative)
 
 
@@ -479,10 +448,7 @@ def run_power_task(task: PowerTask) -> TaskOutput:
         reason = unanalysable_reason(dataset)
         if reason:
             return TaskOutput(missing, reason)
-        result = neutrality_test(dataset, replicates=task.settings.replicates,
-                                 groupings=task.settings.groupings, seed=task.settings.seed,
-                                 noise=task.settings.null.noise,
-                                 start=task.settings.null.start)
+        result = run_calibration(dataset, task.settings)
     except Exception as error:  # noqa: BLE001 - one dataset's failure must not stop the run
         return TaskOutput(missing, f"{type(error).__name__}: {error}")
     return TaskOutput(np.array([result.statistics[name].pvalue if name in result.statistics
@@ -586,27 +552,6 @@ class PowerResult:
 
 
 # ----------------------------------------------------------------------------- running
-class PowerProgress:
-    """``k/n datasets tested, elapsed, about ... left`` on a stream, at most every few seconds."""
-
-    def __init__(self, total: int, stream: TextIO | None) -> None:
-        self.total, self.stream = total, stream
-        self.done = 0
-        self.start = time.monotonic()
-        self.last_line = -math.inf
-
-    def dataset_finished(self) -> None:
-        self.done += 1
-        now = time.monotonic()
-        if self.stream is None or (now - self.last_line < PROGRESS_EVERY
-                                   and self.done < self.total):
-            return
-        self.last_line = now
-        elapsed = now - self.start
-        line = f"{self.done}/{self.total} datasets tested, {duration_text(elapsed)} elapsed"
-        if self.done < self.total:
-            line += f", about {duration_text(elapsed * (self.total / self.done - 1))} left"
-        print(f"driftscreen: power: {line}", file=self.stream, flush=True)
 
 
 def power_curve(design: PowerDesign, alternative: str | NicheAlternative = "logistic",
@@ -640,14 +585,21 @@ def power_curve(design: PowerDesign, alternative: str | NicheAlternative = "logi
     PowerResult
         Rejection rates with Wilson intervals, the minimum detectable strength, ``summary()``.
     """
+    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
+    return power_with(design, alternative, strengths, n_datasets, settings, jobs=jobs,
+                      alpha=alpha, messages=messages)
+
+
+def power_with(design: PowerDesign, alternative: str | NicheAlternative,
+               strengths: Sequence[float] | None, n_datasets: int,
+               settings: CalibrationSettings, *, jobs: int = 1, alpha: float = 0.05,
+               messages: TextIO | None = None) -> PowerResult:
+    """:func:`power_curve` with its calibration settings as one record (the null's options
+    included)."""
     alternative = as_alternative(alternative)
     grid = checked_strengths(strengths, alternative)
-    if n_datasets < 1:
-        raise ValueError("n_datasets must be at least 1")
-    if not 0.0 < alpha < 1.0:
-        raise ValueError("alpha must be in (0, 1)")
-    settings = CalibrationSettings(replicates=replicates, groupings=groupings, seed=seed)
-    names = statistic_names(design, groupings)
+    check_power_input(n_datasets, alpha)
+    names = statistic_names(design, settings.groupings)
     tasks = [PowerTask(design, alternative, strength, index, settings, names)
              for strength in grid for index in range(n_datasets)]
     progress = PowerProgress(len(tasks), messages)
@@ -662,6 +614,22 @@ def power_curve(design: PowerDesign, alternative: str | NicheAlternative = "logi
                      for task, out in zip(tasks, outputs) if out.failure)
     return PowerResult(design, alternative, np.array(grid), names, pvalues, failures, alpha,
                        settings)
+
+
+def check_power_input(n_datasets: int, alpha: float) -> None:
+    """The input check of :func:`power_curve` besides the grid and the calibration settings.
+
+    Raises
+    ------
+    InputError
+        ``n_datasets`` below 1 or ``alpha`` outside (0, 1).
+    """
+    if n_datasets < 1:
+        raise InputError(f"{n_datasets} datasets per strength are too few",
+                         parameter="n_datasets", fix="give at least 1")
+    if not 0.0 < alpha < 1.0:
+        raise InputError(f"alpha {alpha:g} is not between 0 and 1", parameter="alpha",
+                         fix="give a level such as 0.05")
 
 
 # ----------------------------------------------------------------------------- detectable line
@@ -680,8 +648,8 @@ def bisect_detectable(design: PowerDesign, alternative: NicheAlternative,
     evaluated: dict[float, float] = {}
     while above - below > 1:
         middle = (below + above) // 2
-        run = power_curve(design, alternative, [grid[middle]], n_datasets,
-                          settings.replicates, settings.groupings, settings.seed, jobs, alpha)
+        run = power_with(design, alternative, [grid[middle]], n_datasets, settings,
+                         jobs=jobs, alpha=alpha)
         evaluated[grid[middle]] = float(run.combined_power()[0])
         if evaluated[grid[middle]] >= TARGET_POWER:
             above = middle
@@ -699,12 +667,12 @@ def detectable_line(dataset: Dataset, settings: CalibrationSettings, *,
 
     A quick power run on the dataset's own design (times, depths, abundance profile):
     ``n_datasets`` per strength, B = ``replicates``, bisection over a short grid
-    (:func:`bisect_detectable`); ``settings`` gives the groupings and the seed.
+    (:func:`bisect_detectable`); ``settings`` gives the groupings, the seed and the null's
+    options.
     """
     alt = as_alternative(alternative)
     grid = DEFAULT_STRENGTHS[alt.name]
-    quick = CalibrationSettings(replicates=replicates, groupings=settings.groupings,
-                                seed=settings.seed, null=settings.null)
+    quick = replace(settings, replicates=replicates)
     design = PowerDesign.from_dataset(dataset)
     mde = bisect_detectable(design, alt, grid, n_datasets, quick, jobs, alpha)
     head = f"{DETECTABLE_PREFIX}{design.short_text()}), the {alt.label} niche alternative"
@@ -726,16 +694,6 @@ def detectable_settings(alternative: str = "logistic") -> str:
     grid = ",".join(f"{s:g}" for s in DEFAULT_STRENGTHS[alternative])
     return (f"{alternative} alternative, {QUICK_DATASETS} datasets per strength, B = "
             f"{QUICK_REPLICATES}, alpha 0.05, {TARGET_POWER:.0%} power, bisection over {grid}")
-
-
-def with_detectable_line(result: NeutralityResult, line: str) -> NeutralityResult:
-    """``result`` with ``line`` appended to its notes (printed under "Notes")."""
-    return replace(result, notes=tuple(result.notes) + (line,))
-
-
-def has_detectable_line(result: NeutralityResult) -> bool:
-    """True if ``result`` already carries a line of :func:`detectable_line`."""
-    return any(note.startswith(DETECTABLE_PREFIX) for note in result.notes)
 
 
 __all__ = ["ALTERNATIVES", "NicheAlternative", "PowerDesign", "PowerResult", "detectable_line",

@@ -13,8 +13,9 @@ from dataclasses import replace
 
 import numpy as np
 
-from driftscreen.calibrate import COMBINED, CalibrationSettings, neutrality_test
+from driftscreen.calibrate import CalibrationSettings, run_calibration
 from driftscreen.dataset import Dataset, Design
+from driftscreen.limits import check_analysable
 from driftscreen.results import NeutralityResult
 
 #: The lower depth is this fraction of the stated one.
@@ -57,17 +58,18 @@ def at_lower_depth(dataset: Dataset, factor: float = LOWER_DEPTH_FACTOR) -> Data
 
 def depth_sensitivity_line(dataset: Dataset, stated: NeutralityResult,
                            settings: CalibrationSettings,
-                           factor: float = LOWER_DEPTH_FACTOR) -> str:
+                           factor: float = LOWER_DEPTH_FACTOR, *, jobs: int = 1) -> str:
     """One sentence: the p-values at the stated depth and at ``factor`` x that depth.
 
-    The lower-depth test uses the same settings and seed, so it is reproducible.
+    The lower-depth test uses the same settings and seed, so it is reproducible, and runs
+    its replicates in ``jobs`` processes (results do not depend on them).
     """
-    lower = neutrality_test(at_lower_depth(dataset, factor), replicates=settings.replicates,
-                            groupings=settings.groupings, seed=settings.seed,
-                            noise=settings.null.noise, start=settings.null.start)
+    converted = at_lower_depth(dataset, factor)
+    check_analysable(converted)
+    lower = run_calibration(converted, settings, jobs=jobs)
     pairs = [f"{name} {stated.statistics[name].pvalue:.3g} -> {lower.statistics[name].pvalue:.3g}"
              for name in stated.statistics if name in lower.statistics]
-    same = (stated[COMBINED].pvalue <= 0.05) == (lower[COMBINED].pvalue <= 0.05)
+    same = stated.rejected() == lower.rejected()
     verdict = ("the verdict at alpha = 0.05 is the same at both depths" if same else
                "the verdict at alpha = 0.05 changes with the depth: it hinges on the stated "
                "depth, which should be justified")

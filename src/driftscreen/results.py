@@ -16,7 +16,41 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from driftscreen.neutral.model import NeutralModel
+from driftscreen.limits import GROUPINGS, READ_PRECISION, REPLICATES, SEED
+from driftscreen.neutral.model import NeutralModel, NullOptions
+from driftscreen.statistics.registry import COMBINED
+from driftscreen.version import __version__
+
+#: Columns of :meth:`NeutralityResult.to_frame`, one row per statistic. In Python a
+#: statistic's p-value is ``pvalue`` (as in scipy.stats); in tables it is ``p_value``.
+STATISTIC_COLUMNS = ("statistic", "alternative", "observed", "null_mean", "null_sd",
+                     "null_median", "effect_size", "ratio_to_median", "p_value", "note")
+#: Level at which :meth:`NeutralityResult.rejected` rejects by default.
+ALPHA = 0.05
+
+
+def rejected(pvalue: float, alpha: float = ALPHA) -> bool:
+    """Whether a combined p-value (or q-value) rejects neutrality at ``alpha`` (NaN never does)."""
+    return bool(np.isfinite(pvalue) and pvalue <= alpha)
+
+
+@dataclass(frozen=True)
+class CalibrationSettings:
+    """Settings of one calibration run; part of every result's provenance."""
+
+    replicates: int = 999
+    groupings: int = 200
+    seed: int = 0
+    null: NullOptions = NullOptions()
+
+    def __post_init__(self) -> None:
+        REPLICATES.check("replicates", self.replicates)
+        GROUPINGS.check("groupings", self.groupings)
+        SEED.check("seed", self.seed)
+        if not isinstance(self.null.noise, str):
+            READ_PRECISION.check("a fixed read precision", self.null.noise)
+
+
 
 
 @dataclass(frozen=True)
@@ -152,26 +186,55 @@ class NeutralityResult:
     dataset was not rejected or the influence was not computed. ``taxa`` is the calibrated
     per-taxon scan (:mod:`driftscreen.taxon_scan`), one row per taxon or pool of rare
     taxa, made storable like the diagnostics; ``None`` where it was not computed.
+
+    Its provenance: ``settings`` (replicates, groupings, seed and the null's options),
+    ``statistic_options`` (every statistic that was run, with its options, as its repr) and
+    the driftscreen ``version`` that computed it.
     """
 
     dataset: DatasetSummary
     model: NeutralModel
     statistics: dict[str, StatisticResult]
     parameters: dict[str, ParameterEstimate]
-    replicates: int
-    seed: int
+    settings: CalibrationSettings
     notes: tuple[str, ...] = field(default=())
     diagnostics: dict[str, pd.DataFrame] = field(default_factory=dict)
     influence: SampleInfluence | None = None
     taxa: pd.DataFrame | None = None
+    statistic_options: tuple[str, ...] = ()
+    version: str = __version__
 
     def __getitem__(self, name: str) -> StatisticResult:
         return self.statistics[name]
 
     @property
+    def replicates(self) -> int:
+        """The number B of neutral replicates."""
+        return self.settings.replicates
+
+    @property
+    def seed(self) -> int:
+        """The master seed."""
+        return self.settings.seed
+
+    def rejected(self, alpha: float = ALPHA) -> bool:
+        """Whether the combined test rejects neutrality at ``alpha`` (p-value <= alpha)."""
+        return rejected(self.pvalue, alpha)
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per statistic (``combined`` last), columns :data:`STATISTIC_COLUMNS`.
+
+        The one table behind the report's statistics, ``results.tsv`` and ``results.json``.
+        """
+        rows = [(s.name, s.alternative, s.statistic, s.null_mean, s.null_sd, s.null_median,
+                 s.effect_size, s.ratio_to_median, s.pvalue, s.note)
+                for s in self.statistics.values()]
+        return pd.DataFrame(rows, columns=list(STATISTIC_COLUMNS))
+
+    @property
     def pvalue(self) -> float:
         """The combined p-value (calibrated harmonic mean p-value of all statistics)."""
-        return self.statistics["combined"].pvalue
+        return self.statistics[COMBINED].pvalue
 
     @property
     def pvalue_resolution(self) -> float:

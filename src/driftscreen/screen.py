@@ -27,7 +27,6 @@ run stopped during step 5) gets it on the next run; one that has it is not redon
 from __future__ import annotations
 
 import contextlib
-import time
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
 from typing import Any, TextIO
@@ -44,15 +43,13 @@ from driftscreen.fdr import qvalues_by_statistic
 from driftscreen.influence import (LEVEL, NOTE_PREFIX, InfluencePlan, finish_influence,
                                    plan_influence, wants_influence)
 from driftscreen.limits import unanalysable_reason
-from driftscreen.report.text import duration_text
+from driftscreen.progress import Progress
 from driftscreen.results import DatasetSummary, NeutralityResult, SampleInfluence
 from driftscreen.serialize import (result_from_dict, result_to_dict, summary_from_dict,
                                    summary_to_dict)
 from driftscreen.statistics.registry import STATISTIC_NAMES, default_statistics
 from driftscreen.store import ResultStore
 
-#: Seconds between two progress lines on stderr.
-PROGRESS_EVERY = 5.0
 BACKENDS = ("loky", "dask")
 #: How long to wait for a Dask scheduler to answer.
 SCHEDULER_TIMEOUT = "20s"
@@ -161,11 +158,6 @@ def stored_outcome(store: ResultStore, name: str, data: Mapping[str, Any]) -> Da
         raise store.not_a_store(f"the record of dataset '{name}' is of another layout") from None
 
 
-def screen_statistics(groupings: int) -> list[str]:
-    """The configured statistics with all their options (for the settings fingerprint)."""
-    return [repr(s) for s in default_statistics(time_series=True, n_groupings=groupings)]
-
-
 # ----------------------------------------------------------------------------- analysability
 def failed_outcome(dataset: Dataset, note: str) -> DatasetOutcome:
     return DatasetOutcome(summarize_dataset(dataset), None, note)
@@ -202,55 +194,6 @@ def assemble_safely(plan: CalibrationPlan, outputs: list[ChunkOutput | Failure]
 
 
 # ----------------------------------------------------------------------------- progress
-class Progress:
-    """Datasets done / total, elapsed and estimated time left, on a text stream.
-
-    The estimate scales the time spent on replicates so far by the share of replicate
-    work (replicates x samples x taxa) still to do. A line is written at most every
-    ``every`` seconds, and always for the last dataset. ``stream=None`` writes nothing.
-    """
-
-    def __init__(self, total: int, stream: TextIO | None, every: float = PROGRESS_EVERY,
-                 noun: str = "datasets") -> None:
-        self.total, self.stream, self.every, self.noun = total, stream, every, noun
-        self.done = 0
-        self.work = self.work_done = 0.0
-        self.start = self.work_start = time.monotonic()
-        self.last_line = -np.inf
-
-    def write(self, text: str) -> None:
-        if self.stream is not None:
-            print(f"driftscreen: {text}", file=self.stream, flush=True)
-
-    def counted(self, n_datasets: int) -> None:
-        """Datasets that need no work (reused or not analysable): counted, no line."""
-        self.done += n_datasets
-
-    def planned(self, n_datasets: int, n_chunks: int, work: float, stage: str = "fitted"
-                ) -> None:
-        """The replicate work is laid out (``stage``: what was done to plan it); the time
-        estimate starts now."""
-        self.work, self.work_start = work, time.monotonic()
-        if n_chunks:
-            self.write(f"{stage} {n_datasets} datasets in "
-                       f"{duration_text(self.work_start - self.start)}; running {n_chunks} "
-                       "chunks of neutral replicates")
-
-    def chunk_finished(self, work: float) -> None:
-        self.work_done += work
-
-    def dataset_finished(self) -> None:
-        self.done += 1
-        now = time.monotonic()
-        if now - self.last_line < self.every and self.done < self.total:
-            return
-        self.last_line = now
-        line = (f"{self.done}/{self.total} {self.noun} done, "
-                f"{duration_text(now - self.start)} elapsed")
-        if self.done < self.total and 0 < self.work_done < self.work:
-            left = (now - self.work_start) * (self.work - self.work_done) / self.work_done
-            line += f", about {duration_text(left)} left"
-        self.write(line)
 
 
 def chunk_work(task: ChunkTask) -> float:
@@ -472,17 +415,17 @@ def check_backend(backend: str, scheduler: str | None = None) -> None:
         Unknown backend, a scheduler without the Dask backend, or Dask not installed.
     """
     if backend not in BACKENDS:
-        raise InputError(f"unknown backend '{backend}'", file="option --backend",
+        raise InputError(f"unknown backend '{backend}'", parameter="backend",
                          fix="use " + " or ".join(BACKENDS))
     if backend != "dask" and scheduler is not None:
         raise InputError("a scheduler address needs the Dask backend",
-                         file="option --scheduler", fix="add --backend dask")
+                         parameter="scheduler", fix="add --backend dask")
     if backend == "dask":
         try:
             import distributed  # noqa: F401
         except ImportError:
             raise InputError("the Dask backend needs the packages dask and distributed",
-                             file="option --backend",
+                             parameter="backend",
                              fix="pip install 'driftscreen[dask]', or use --backend loky"
                              ) from None
 
@@ -526,7 +469,7 @@ def dask_client(scheduler: str | None, jobs: int) -> Iterator[Any]:
         client = Client(scheduler, timeout=SCHEDULER_TIMEOUT)
     except (OSError, TimeoutError, ValueError) as error:
         raise InputError(f"cannot reach the Dask scheduler at '{scheduler}' ({error})",
-                         file="option --scheduler",
+                         parameter="scheduler",
                          fix="check the address and that the scheduler is running") from None
     with client:
         yield client

@@ -19,9 +19,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from driftscreen.neutral.model import NeutralModel
-from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
-                                 SampleInfluence, StatisticResult)
+from driftscreen.neutral.model import NOISE_CHOICES, NeutralModel, NullOptions
+from driftscreen.results import (CalibrationSettings, DatasetSummary, NeutralityResult,
+                                 ParameterEstimate, SampleInfluence, StatisticResult)
 
 INFINITIES = {"inf": math.inf, "-inf": -math.inf}
 
@@ -111,6 +111,22 @@ def statistic_from_dict(data: Mapping[str, Any]) -> StatisticResult:
                            data["note"])
 
 
+def settings_to_dict(settings: CalibrationSettings) -> dict[str, Any]:
+    noise = settings.null.noise
+    return {"replicates": settings.replicates, "groupings": settings.groupings,
+            "seed": settings.seed, "read_noise": noise if isinstance(noise, str)
+            else float_to_json(noise), "start": settings.null.start}
+
+
+def settings_from_dict(data: Mapping[str, Any]) -> CalibrationSettings:
+    noise = data["read_noise"]
+    return CalibrationSettings(
+        replicates=int(data["replicates"]), groupings=int(data["groupings"]),
+        seed=int(data["seed"]),
+        null=NullOptions(noise=noise if noise in NOISE_CHOICES else float_from_json(noise),
+                         start=data["start"]))
+
+
 def influence_to_dict(influence: SampleInfluence | None) -> dict[str, Any] | None:
     if influence is None:
         return None
@@ -184,11 +200,12 @@ def result_to_dict(result: NeutralityResult) -> dict[str, Any]:
         "model": model_to_dict(result.model),
         "statistics": [statistic_to_dict(s) for s in result.statistics.values()],
         "parameters": [parameter_to_dict(p) for p in result.parameters.values()],
-        "replicates": result.replicates, "seed": result.seed, "notes": list(result.notes),
+        "settings": settings_to_dict(result.settings), "notes": list(result.notes),
         "diagnostics": {name: table_to_dict(table)
                         for name, table in result.diagnostics.items()},
         "influence": influence_to_dict(result.influence),
         "taxa": None if result.taxa is None else table_to_dict(result.taxa),
+        "statistic_options": list(result.statistic_options), "version": result.version,
     }
 
 
@@ -205,6 +222,7 @@ def result_from_dict(data: Mapping[str, Any]) -> NeutralityResult:
     return NeutralityResult(
         dataset=summary_from_dict(data["dataset"]), model=model_from_dict(data["model"]),
         statistics={s.name: s for s in statistics}, parameters={p.name: p for p in parameters},
-        replicates=int(data["replicates"]), seed=int(data["seed"]), notes=tuple(data["notes"]),
+        settings=settings_from_dict(data["settings"]), notes=tuple(data["notes"]),
         diagnostics=diagnostics, influence=influence_from_dict(data.get("influence")),
-        taxa=None if data.get("taxa") is None else table_from_dict(data["taxa"]))
+        taxa=None if data.get("taxa") is None else table_from_dict(data["taxa"]),
+        statistic_options=tuple(data["statistic_options"]), version=data["version"])

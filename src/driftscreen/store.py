@@ -9,8 +9,8 @@ Every file is written through a temporary file and a rename
 (:func:`driftscreen.files.atomic_write_text`), so a killed run leaves either a whole record
 or none. The fingerprint holds everything that changes results: the driftscreen version,
 the SHA-256 of every input file, the intake options, replicates, groupings, seed and the
-configured statistics (the commands add the options of their follow-ups: ``detectable``
-when on, ``influence`` when off). A run with the same fingerprint reuses every finished
+configured statistics, and the options of the follow-ups (:func:`screen_fingerprint`:
+``detectable`` when on, ``influence`` when off, the null's options, the per-taxon scan). A run with the same fingerprint reuses every finished
 record; a run with another fingerprint is refused, naming what differs. A record holds the
 dataset's result with its follow-ups (e.g. its most influential sample), so a resumed run
 does not redo them. A settings file or record that cannot be read, or is of another
@@ -28,17 +28,23 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
-from driftscreen import __version__
+from driftscreen.calibrate import CalibrationSettings
 from driftscreen.errors import InputError
 from driftscreen.files import atomic_write_text, sha256_of
+from driftscreen.power import detectable_settings
+from driftscreen.statistics.registry import default_statistics
+from driftscreen.taxon_scan import VERSION as TAXON_SCAN_VERSION
+from driftscreen.version import __version__
 
 STORE_FOLDER = ".driftscreen"
 SETTINGS_FILE = "settings.json"
 RECORDS_FOLDER = "datasets"
 #: Version of the store's own layout; part of the fingerprint.
-STORE_FORMAT = 1
+STORE_FORMAT = 2
 #: Fingerprint entries that are shown but never compared (the same bytes may be moved).
 NOT_COMPARED = ("path",)
+#: Fingerprint entry of a screen run without the most influential samples.
+INFLUENCE_OFF = "off"
 
 
 def settings_fingerprint(*, inputs: Mapping[str, str | os.PathLike],
@@ -68,6 +74,35 @@ def settings_fingerprint(*, inputs: Mapping[str, str | os.PathLike],
         "seed": int(seed),
         "statistics": list(statistics),
     }
+
+
+def screen_fingerprint(*, inputs: Mapping[str, str | os.PathLike | None],
+                       intake: Mapping[str, Any], settings: CalibrationSettings,
+                       detectable: bool, influence: bool) -> dict[str, Any]:
+    """The settings fingerprint of a screen (:func:`settings_fingerprint`) with the options
+    of its follow-ups.
+
+    ``inputs`` are the input files by role (``None`` where not given); ``intake`` are all
+    intake options of :func:`driftscreen.intake.read_datasets` (defaults filled in), of which
+    ``taxon_map`` counts as an input file.
+    """
+    fingerprint = settings_fingerprint(
+        inputs={role: path for role, path in inputs.items() if path is not None},
+        intake={k: v for k, v in intake.items() if k != "taxon_map"},
+        replicates=settings.replicates, groupings=settings.groupings, seed=settings.seed,
+        statistics=configured_statistics(settings.groupings))
+    if detectable:
+        fingerprint["detectable"] = detectable_settings()
+    if not influence:
+        fingerprint["influence"] = INFLUENCE_OFF
+    fingerprint["null"] = {"read_noise": settings.null.noise, "start": settings.null.start}
+    fingerprint["taxon_scan"] = TAXON_SCAN_VERSION
+    return fingerprint
+
+
+def configured_statistics(groupings: int) -> list[str]:
+    """The configured statistics with all their options (their reprs)."""
+    return [repr(s) for s in default_statistics(time_series=True, n_groupings=groupings)]
 
 
 def canonical_json(data: Any) -> str:

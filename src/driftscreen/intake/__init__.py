@@ -10,7 +10,7 @@ naming the file, the place and the fix (:class:`driftscreen.errors.InputError`).
 
 from __future__ import annotations
 
-from driftscreen.intake.reader import read_datasets
+from driftscreen.intake.reader import intake_defaults, read_datasets
 from driftscreen.intake.writer import write_tables
 
-__all__ = ["read_datasets", "write_tables"]
+__all__ = ["intake_defaults", "read_datasets", "write_tables"]

@@ -150,13 +150,13 @@ def read_biom(path: str | os.PathLike, *, layout: str, orientation: str, sample_
 def check_text_options(label: str, layout: str, orientation: str, sample_id: str | None,
                        metadata_given: bool) -> None:
     """Options that describe text tables do not apply to a BIOM file."""
-    for option, value in (("--layout", layout), ("--orientation", orientation)):
+    for name, value in (("layout", layout), ("orientation", orientation)):
         if value != "auto":
             raise InputError(f"applies to CSV/TSV tables only, but {label} is a BIOM table",
-                             file=f"option {option}", fix="drop it")
+                             parameter=name, fix="drop it")
     if sample_id is not None and not metadata_given:
         raise InputError(f"names a column of a --metadata file; the sample ids of {label} are "
-                         "those stored in it", file="option --sample-id",
+                         "those stored in it", parameter="sample_id",
                          fix="drop it, or give --metadata FILE")
 
 

@@ -238,7 +238,7 @@ def read_wide(table: TextTable, orientation: str, lineage: str | None,
     if orientation == "taxa-columns":
         if lineage is not None:
             raise InputError(f"a lineage column needs taxa as rows, but {table.label} has taxa "
-                             "as columns", file="option --lineage",
+                             "as columns", parameter="lineage",
                              fix="give lineages in a --taxon-map file instead")
         lineage_index = None
     elif lineage_index is not None and lineage is None:

@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
+import inspect
 import math
 import os
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 
@@ -26,6 +27,7 @@ from driftscreen.limits import (MAX_READS, MAX_READS_TEXT, MAX_SPAN_DAYS, MAX_SP
                                MIN_SAMPLES_SNAPSHOT, MIN_TAXA)
 
 OTHER = "other"
+#: The choices of the intake options that take one (the parser offers the same).
 CHOICES = {
     "layout": ("auto", "wide", "long"),
     "orientation": ("auto", "taxa-rows", "taxa-columns"),
@@ -178,21 +180,21 @@ def check_options(metadata: object, sample_id: str | None, dataset_by: Sequence[
                   lineage: str | None, rank: str | None, taxon_map: object) -> None:
     """Option combinations that cannot work, reported before any file is read."""
     if metadata is None:
-        for option, value in (("--sample-id", sample_id), ("--dataset-by", dataset_by or None),
-                              ("--time-by", time_by), ("--depth-by", depth_by)):
+        for name, value in (("sample_id", sample_id), ("dataset_by", dataset_by or None),
+                            ("time_by", time_by), ("depth_by", depth_by)):
             if value is not None:
-                raise InputError("needs a metadata table", file=f"option {option}",
+                raise InputError("needs a metadata table", parameter=name,
                                  fix="give --metadata FILE")
     if depth is not None:
         check_depth_number(depth)
         if depth_by is not None:
-            raise InputError("--depth and --depth-by are both given", file="option --depth",
+            raise InputError("--depth and --depth-by are both given", parameter="depth",
                              fix="give one of them")
     if lineage is not None and taxon_map is not None:
-        raise InputError("--lineage and --taxon-map are both given", file="option --lineage",
+        raise InputError("--lineage and --taxon-map are both given", parameter="lineage",
                          fix="give one of them")
     if rank is not None and lineage is None and taxon_map is None:
-        raise InputError("needs lineages to aggregate taxa", file="option --rank",
+        raise InputError("needs lineages to aggregate taxa", parameter="rank",
                          fix="give --lineage COLUMN or --taxon-map FILE")
 
 
@@ -201,14 +203,14 @@ def check_depth_number(depth: object) -> None:
     try:
         value = float(depth)  # type: ignore[arg-type]
     except (TypeError, ValueError):
-        raise InputError(f"non-numeric depth '{depth}'", file="option --depth",
+        raise InputError(f"non-numeric depth '{depth}'", parameter="depth",
                          fix="give the number of reads per sample, e.g. --depth 10000") from None
     if not (math.isfinite(value) and value > 0):
-        raise InputError(f"depth {depth} is not a positive number", file="option --depth",
+        raise InputError(f"depth {depth} is not a positive number", parameter="depth",
                          fix="give the number of reads per sample, e.g. --depth 10000")
     if value > MAX_READS:
         raise InputError(f"depth {depth} is more reads than any sequencing run gives (at most "
-                         f"{MAX_READS_TEXT})", file="option --depth",
+                         f"{MAX_READS_TEXT})", parameter="depth",
                          fix="give the number of reads per sample, e.g. --depth 10000")
 
 
@@ -230,7 +232,7 @@ def read_count_table(counts: str | os.PathLike, layout: str, orientation: str,
     if layout == "long" or (layout == "auto" and is_long(text, lineage)):
         if orientation != "auto":
             raise InputError(f"applies to wide tables only, but {text.label} is a long table",
-                             file="option --orientation", fix="drop it, or give --layout wide")
+                             parameter="orientation", fix="drop it, or give --layout wide")
         return read_long(text, lineage)
     return read_wide(text, orientation, lineage, None if meta is None else meta.ids())
 
@@ -376,3 +378,15 @@ def remainder_notes(table: Table, members: np.ndarray) -> list[str]:
         return []
     return [f"pooled the unlisted remainder of each sample as taxon '{OTHER}' "
             f"(mean {share:.1%} of reads)"]
+
+
+def intake_defaults() -> dict[str, Any]:
+    """Default intake options of :func:`driftscreen.intake.read_datasets` (size limits aside).
+
+    Filling them in makes the settings fingerprint the same whether an option was given
+    at its default value or left out.
+    """
+    return {name: parameter.default
+            for name, parameter in inspect.signature(read_datasets).parameters.items()
+            if parameter.kind is inspect.Parameter.KEYWORD_ONLY
+            and name not in ("min_samples", "min_taxa")}

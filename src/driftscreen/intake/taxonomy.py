@@ -55,7 +55,7 @@ def parse_rank(rank: str) -> Rank:
         return Rank(RANKS.index(text), True, text)
     if text.isdigit() and int(text) >= 1:
         return Rank(int(text) - 1, False, f"level {int(text)}")
-    raise InputError(f"unknown rank '{rank}'", file="option --rank",
+    raise InputError(f"unknown rank '{rank}'", parameter="rank",
                      fix="use kingdom, phylum, class, order, family, genus, species or a level "
                          "number 1, 2, ...")
 

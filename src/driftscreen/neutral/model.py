@@ -23,6 +23,8 @@ from typing import Literal
 import numpy as np
 
 NoiseOption = Literal["estimate", "off"] | float
+#: The named values of :attr:`NullOptions.noise` (else a fixed precision).
+NOISE_CHOICES: tuple[str, ...] = ("estimate", "off")
 StartOption = Literal["first-sample", "stationary"]
 #: Allowed values of :attr:`NullOptions.start`.
 START_CHOICES: tuple[str, ...] = ("first-sample", "stationary")
@@ -54,7 +56,7 @@ class NullOptions:
 
     def __post_init__(self) -> None:
         if isinstance(self.noise, str):
-            if self.noise not in ("estimate", "off"):
+            if self.noise not in NOISE_CHOICES:
                 raise ValueError(f"noise must be 'estimate', 'off' or a precision > 0, "
                                  f"got {self.noise!r}")
         elif not (np.isfinite(self.noise) and self.noise > 0):
@@ -196,3 +198,10 @@ def read_theta(theta: np.ndarray | float, noise: np.ndarray | float) -> np.ndarr
     """
     v = 1.0 / (1.0 + np.asarray(theta, dtype=np.float64))
     return 1.0 / (v + (1.0 - v) * np.asarray(noise, dtype=np.float64)) - 1.0
+
+
+def single_fit(model: NeutralModel) -> NullFit:
+    """A batch-of-one NullFit holding ``model``."""
+    rate = None if model.rate is None else np.array([model.rate])
+    return NullFit(p=model.p[None], theta=np.array([model.theta]), rate=rate,
+                   clipped=np.array([False]), noise=np.array([model.noise]))

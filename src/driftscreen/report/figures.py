@@ -40,22 +40,19 @@ import pandas as pd
 
 from driftscreen.errors import InputError
 from driftscreen.files import atomic_write_bytes
-from driftscreen.report.text import number, pvalue_text, volatility_classes
-from driftscreen.results import NeutralityResult, StatisticResult
+from driftscreen.report.format import number, pvalue_text
+from driftscreen.report.text import volatility_classes
+from driftscreen.statistics.registry import COMBINED, statistic_class
 
 if TYPE_CHECKING:
     from matplotlib.axes import Axes
     from matplotlib.axis import Axis
     from matplotlib.figure import Figure
 
-#: What each statistic's value is, for the axis of its null distribution.
-STATISTIC_AXES = {
-    "stationary_divergence": "KL divergence from the stationary law, summed over taxa (nats)",
-    "regrouping_invariance": "variance of log volatility over groupings of taxa",
-    "fluctuation_scaling": "Taylor exponent b",
-    "dispersion_heterogeneity": "likelihood ratio, taxon-specific vs common theta",
-    "combined": "-log10 of the harmonic mean p-value",
-}
+    from driftscreen.results import NeutralityResult, StatisticResult
+
+#: What the value of ``combined`` is.
+COMBINED_AXIS = "-log10 of the harmonic mean p-value"
 DPI = 120
 OBSERVED_COLOUR = "#c0392b"
 NULL_COLOUR = "#8fb3d9"
@@ -88,7 +85,7 @@ def require_matplotlib() -> None:
     try:
         import matplotlib  # noqa: F401
     except ImportError:
-        raise InputError("figures need matplotlib", file="option --figures",
+        raise InputError("figures need matplotlib", parameter="figures",
                          fix="pip install 'driftscreen[plot]'") from None
 
 
@@ -139,6 +136,14 @@ def pvalue_label(statistic: StatisticResult, replicates: int) -> str:
     return f"p \u2264 {text[2:]}" if text.startswith("<=") else f"p = {text}"
 
 
+def statistic_axis(name: str) -> str:
+    """What a statistic's value is, for the axis of its null distribution."""
+    if name == COMBINED:
+        return COMBINED_AXIS
+    cls = statistic_class(name)
+    return name if cls is None else cls.unit
+
+
 def null_panel(axes: Axes, statistic: StatisticResult, replicates: int) -> None:
     """Histogram of one statistic's null distribution with the observed value marked."""
     null = statistic.null_distribution
@@ -147,7 +152,7 @@ def null_panel(axes: Axes, statistic: StatisticResult, replicates: int) -> None:
              and math.isfinite(statistic.pvalue) else "")
     axes.set_title(f"{statistic.name}\nobserved {number(observed)}, "
                    f"{pvalue_label(statistic, replicates)}{sided}", fontsize=10)
-    axes.set_xlabel(STATISTIC_AXES.get(statistic.name, statistic.name), fontsize=8)
+    axes.set_xlabel(statistic_axis(statistic.name), fontsize=8)
     axes.set_ylabel("neutral replicates", fontsize=8)
     axes.tick_params(labelsize=8)
     if null.size:

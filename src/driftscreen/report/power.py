@@ -8,11 +8,73 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from driftscreen import __version__
-from driftscreen.report.text import heading, table, wrap, wrapped_pairs
+from driftscreen.power import TARGET_POWER, wilson_interval
+from driftscreen.report.format import heading, number, table, wrap, wrapped_pairs
+from driftscreen.version import __version__
 
 if TYPE_CHECKING:
-    from driftscreen.power import NicheAlternative, PowerResult
+    from driftscreen.power import NicheAlternative, PowerDesign, PowerResult
+
+
+def days(value: float) -> str:
+    """``1 day``, ``2.5 days``."""
+    return f"{value:g} day" + ("" if value == 1 else "s")
+
+
+def design_pairs(design: PowerDesign) -> list[tuple[str, str]]:
+    """Design, taxa, depths and abundances as (key, value) pairs for the report."""
+    if design.fixed is not None:
+        fixed = design.fixed
+        layout = (f"time series, {design.n_samples} samples over "
+                  f"{number(float(fixed.times[-1] - fixed.times[0]))} days"
+                  if fixed.is_time_series else
+                  f"snapshot, {design.n_samples} replicate communities")
+        depths = (f"min {fixed.depths.min():,}, median {design.median_depth:,.0f}, "
+                  f"max {fixed.depths.max():,}")
+        pairs = [("Design", f"{layout}, as in dataset '{design.source}'")]
+    else:
+        spec = design.spec
+        if spec.interval is None:
+            layout = f"snapshot, {spec.n_samples} replicate communities"
+        elif spec.irregular:
+            layout = (f"time series, {spec.n_samples} samples, gamma-distributed gaps "
+                      f"with mean {days(spec.interval)} (drawn anew per dataset)")
+        else:
+            layout = (f"time series, {spec.n_samples} samples, one every "
+                      f"{days(spec.interval)}")
+        depths = (f"median {spec.depth:,}, log-sd {spec.depth_spread:g} (drawn anew per "
+                  "dataset)" if spec.depth_spread > 0 else f"{spec.depth:,} in every sample")
+        pairs = [("Design", layout)]
+    return pairs + [("Taxa", str(design.n_taxa)), ("Depth (reads)", depths)]
+
+
+def abundance_text(design: PowerDesign, alternative: NicheAlternative) -> str:
+    """Where the carrying capacities of the niche model come from."""
+    if design.profile is not None:
+        return "pooled relative abundances of the dataset (carrying capacities)"
+    return (f"carrying capacities log-uniform over {alternative.spread_decades:g} "
+            "orders of magnitude, drawn per dataset (model default)")
+
+
+def alternative_description(alternative: NicheAlternative) -> str:
+    """What the alternative is and what its strength means, for the report."""
+    if alternative.name == "logistic":
+        return ("independent stochastic logistic taxa (Grilli 2020, Nat. Commun. "
+                "11:4743), generation time "
+                f"{days(alternative.timescale)}. strength = sigma, the environmental noise: each "
+                "taxon fluctuates around its carrying capacity with a Gamma law of squared "
+                "coefficient of variation sigma / (2 - sigma); sigma = 0 is a constant "
+                "community, the neutral limit (theta -> infinity).")
+    text = ("competitive Lotka-Volterra community (Stein et al. 2013, PLoS Comput. "
+            f"Biol. 9:e1003388), generation time {days(alternative.timescale)}, environmental "
+            f"noise {alternative.noise:g}. strength = mean competition coefficient C_ij: the "
+            "fraction by which one other taxon at its carrying capacity reduces a "
+            "taxon's growth")
+    if alternative.noise == 0.0:
+        return text + ("; without noise, strength 0 is a constant community, the "
+                       "neutral limit (theta -> infinity).")
+    return text + (f"; strength 0 is independent logistic taxa with sigma = "
+                   f"{alternative.noise:g} (not neutral).")
 
 
 def percent(value: float) -> str:
@@ -50,8 +112,6 @@ def strength_text(value: float, alternative: NicheAlternative) -> str:
 
 def detectable_sentence(result: PowerResult) -> str:
     """The minimum detectable strength of ``combined``, with how it was obtained."""
-    from driftscreen.power import TARGET_POWER
-
     mde, optimistic, pessimistic = result.minimum_detectable()
     alt, grid = result.alternative, result.strengths
     power = result.combined_power()
@@ -74,8 +134,6 @@ def detectable_sentence(result: PowerResult) -> str:
 
 def precision_sentence(n_datasets: int) -> str:
     """How precisely n datasets pin down a power of 50% and of 80%."""
-    from driftscreen.power import wilson_interval
-
     halves = []
     for share in (0.5, 0.8):
         low, high = wilson_interval(round(share * n_datasets), n_datasets)
@@ -88,14 +146,12 @@ def precision_sentence(n_datasets: int) -> str:
 
 def power_report(result: PowerResult) -> str:
     """The report of :meth:`driftscreen.power.PowerResult.summary`."""
-    from driftscreen.power import TARGET_POWER
-
     alt, settings = result.alternative, result.settings
     lines = heading(f"driftscreen {__version__}: power against the {alt.label} niche "
                     "alternative", "=")
-    lines += wrapped_pairs(result.design.describe() + [
-        ("Abundances", result.design.abundance_text(alt)),
-        ("Alternative", alt.description()),
+    lines += wrapped_pairs(design_pairs(result.design) + [
+        ("Abundances", abundance_text(result.design, alt)),
+        ("Alternative", alternative_description(alt)),
         ("Datasets", f"{result.n_datasets} simulated per strength, each tested in full"),
         ("Calibration", f"B = {settings.replicates} neutral replicates, R = "
                         f"{settings.groupings} groupings, alpha = {result.alpha:g}"),

@@ -17,16 +17,18 @@ from __future__ import annotations
 import json
 import math
 from collections.abc import Mapping, Sequence
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from driftscreen.results import NeutralityResult
-from driftscreen.screen import DatasetOutcome, ScreenResult
-from driftscreen.calibrate import COMBINED
 from driftscreen.serialize import (float_to_json, floats_to_json, influence_to_dict,
                                    summary_to_dict, table_to_dict)
+from driftscreen.statistics.registry import COMBINED
 from driftscreen.taxon_scan import ACROSS_COLUMNS, across_datasets
+
+if TYPE_CHECKING:
+    from driftscreen.results import NeutralityResult
+    from driftscreen.screen import DatasetOutcome, ScreenResult
 
 RESULTS_COLUMNS = ("dataset", "statistic", "alternative", "observed", "null_mean", "null_sd",
                    "null_median", "effect_size", "ratio_to_median", "p_value", "q_value",
@@ -63,19 +65,13 @@ def tsv(columns: Sequence[str], rows: Sequence[Sequence[object]]) -> str:
 def statistic_rows(outcome: DatasetOutcome, index: int, run: ScreenResult) -> list[list[object]]:
     """results.tsv rows of one dataset; empty numbers and the reason if not analysed."""
     summary, result = outcome.summary, outcome.result
-    rows: list[list[object]] = []
-    for name in outcome.statistic_names():
-        head = [summary.name, name]
-        size = [summary.n_samples, summary.n_taxa]
-        if result is None:
-            rows.append(head + [None] * 9 + size + [None, None, None, outcome.note])
-            continue
-        s = result.statistics[name]
-        rows.append(head + [s.alternative, s.statistic, s.null_mean, s.null_sd, s.null_median,
-                            s.effect_size, s.ratio_to_median, s.pvalue,
-                            run.qvalue(index, name)] + size + [result.replicates]
-                    + without_sample_cells(result, name) + [s.note])
-    return rows
+    size = [summary.n_samples, summary.n_taxa]
+    if result is None:
+        return [[summary.name, name] + [None] * 9 + size + [None, None, None, outcome.note]
+                for name in outcome.statistic_names()]
+    return [[summary.name] + list(row[:-1]) + [run.qvalue(index, row.statistic)] + size
+            + [result.replicates] + without_sample_cells(result, row.statistic) + [row.note]
+            for row in result.to_frame().itertuples(index=False)]
 
 
 def without_sample_cells(result: NeutralityResult, name: str) -> list[object]:
@@ -115,16 +111,23 @@ def parameters_tsv(run: ScreenResult) -> str:
     return tsv(PARAMETERS_COLUMNS, [parameter_row(o) for o in run.outcomes])
 
 
-def statistic_record(outcome: DatasetOutcome, index: int, run: ScreenResult,
-                     name: str) -> dict[str, Any]:
-    s = outcome.result.statistics[name]  # type: ignore[union-attr]
-    return {"name": name, "alternative": s.alternative, "observed": float_to_json(s.statistic),
-            "null_mean": float_to_json(s.null_mean), "null_sd": float_to_json(s.null_sd),
-            "null_median": float_to_json(s.null_median),
-            "effect_size": float_to_json(s.effect_size),
-            "ratio_to_median": float_to_json(s.ratio_to_median),
-            "p_value": float_to_json(s.pvalue), "q_value": float_to_json(run.qvalue(index, name)),
-            "note": s.note, "null_distribution": floats_to_json(s.null_distribution)}
+def statistic_records(result: NeutralityResult, index: int, run: ScreenResult
+                      ) -> list[dict[str, Any]]:
+    """results.json records of one dataset's statistics, from its :meth:`to_frame` rows
+    (``statistic`` named ``name``), with the q-value after the p-value and the null
+    distribution last."""
+    records = []
+    for row in result.to_frame().to_dict(orient="records"):
+        record: dict[str, Any] = {}
+        for column, value in row.items():
+            record["name" if column == "statistic" else column] = (
+                value if isinstance(value, str) else float_to_json(value))
+            if column == "p_value":
+                record["q_value"] = float_to_json(run.qvalue(index, row["statistic"]))
+        record["null_distribution"] = floats_to_json(
+            result.statistics[row["statistic"]].null_distribution)
+        records.append(record)
+    return records
 
 
 def dataset_record(outcome: DatasetOutcome, index: int, run: ScreenResult) -> dict[str, Any]:
@@ -139,8 +142,7 @@ def dataset_record(outcome: DatasetOutcome, index: int, run: ScreenResult) -> di
                             for key, p in result.parameters.items()}
     record["flags"] = list(result.notes)
     record["replicates"] = result.replicates
-    record["statistics"] = [statistic_record(outcome, index, run, name)
-                            for name in result.statistics]
+    record["statistics"] = statistic_records(result, index, run)
     record["diagnostics"] = {name: table_to_dict(table)
                              for name, table in result.diagnostics.items()}
     record["influence"] = influence_to_dict(result.influence)

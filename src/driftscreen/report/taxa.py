@@ -9,12 +9,12 @@ from typing import TYPE_CHECKING
 
 import pandas as pd
 
-from driftscreen.report.text import (ALPHA, bullet_list, heading, number, percent,
-                                     qvalue_text, taxon_table, wrap)
-from driftscreen.results import NeutralityResult
+from driftscreen.report.format import (ALPHA, bullet_list, heading, number, percent,
+                                       qvalue_text, taxon_table, wrap)
 from driftscreen.taxon_scan import across_datasets, departing
 
 if TYPE_CHECKING:
+    from driftscreen.results import NeutralityResult
     from driftscreen.screen import ScreenResult
 
 TAXA_LEGEND = (

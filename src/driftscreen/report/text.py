@@ -7,84 +7,27 @@ with a fixed number of significant digits, and nothing depends on the terminal.
 from __future__ import annotations
 
 import math
-import textwrap
 from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 
-from driftscreen import __version__
 from driftscreen.calibrate import MIN_CORRELATION_TIMES
 from driftscreen.influence import CANDIDATES, LEVEL
 from driftscreen.neutral.model import NullOptions
-from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
-                                 StatisticResult)
+from driftscreen.progress import duration_text
+from driftscreen.report.format import (ALPHA, WIDTH, bullet_list, heading, key_values, number,
+                                       percent, pvalue_text, qvalue_text, sentence, shorten,
+                                       table, taxon_table, verdict_word, wrap, wrapped_pairs)
+from driftscreen.report.taxa import TAXA_LEGEND, TAXA_METHODS, screen_taxa_lines, taxa_lines
+from driftscreen.statistics.registry import COMBINED, reported_only, statistic_class
+from driftscreen.version import __version__
 
 if TYPE_CHECKING:
+    from driftscreen.results import (DatasetSummary, NeutralityResult, ParameterEstimate,
+                                     StatisticResult)
     from driftscreen.screen import ScreenResult
-
-WIDTH = 78
-ALPHA = 0.05
-
-
-def number(value: float, digits: int = 4) -> str:
-    """A number in at most ``digits`` significant digits; '-' for missing."""
-    if value is None or not math.isfinite(value):
-        return "-"
-    if value == 0:
-        return "0"
-    magnitude = abs(value)
-    if magnitude >= 1e6 or magnitude < 1e-3:
-        return f"{value:.{digits - 1}e}"
-    return f"{value:.{digits}g}"
-
-
-def pvalue_text(pvalue: float, replicates: int) -> str:
-    """A p-value; at the resolution limit it is shown as '<= 1/(B+1)'."""
-    if pvalue is None or not math.isfinite(pvalue):
-        return "-"
-    floor = 1.0 / (replicates + 1)
-    if pvalue <= floor * (1 + 1e-9):
-        return f"<={floor:.2g}"
-    return f"{pvalue:.3f}" if pvalue >= 0.001 else f"{pvalue:.1e}"
-
-
-def table(headers: Sequence[str], rows: Sequence[Sequence[str]],
-          align: str | None = None) -> list[str]:
-    """Aligned columns; ``align`` is one letter per column, 'l' or 'r' (default: l then r).
-
-    Columns are two spaces apart, or one when two would make the table wider than WIDTH.
-    """
-    align = align or "l" + "r" * (len(headers) - 1)
-    widths = [max(len(str(cell)) for cell in column) for column in zip(headers, *rows)]
-    gap = "  " if sum(widths) + 2 * (len(widths) - 1) <= WIDTH else " "
-
-    def line(cells: Sequence[str]) -> str:
-        return gap.join(str(c).ljust(w) if a == "l" else str(c).rjust(w)
-                        for c, w, a in zip(cells, widths, align)).rstrip()
-
-    return [line(headers), line(["-" * w for w in widths])] + [line(row) for row in rows]
-
-
-def heading(title: str, underline: str = "-") -> list[str]:
-    return [title, underline * min(WIDTH, max(len(title), 20))]
-
-
-def wrap(text: str, indent: str = "") -> list[str]:
-    return textwrap.wrap(text, WIDTH, initial_indent=indent, subsequent_indent=indent) or [""]
-
-
-def bullet_list(items: Sequence[str]) -> list[str]:
-    lines: list[str] = []
-    for item in items:
-        lines += textwrap.wrap(item, WIDTH, initial_indent="  - ", subsequent_indent="    ")
-    return lines
-
-
-def key_values(pairs: Sequence[tuple[str, str]]) -> list[str]:
-    width = max(len(k) for k, _ in pairs)
-    return [f"{k.ljust(width)}  {v}" for k, v in pairs]
 
 
 def parameter_rows(parameters: dict[str, ParameterEstimate]) -> list[list[str]]:
@@ -96,21 +39,22 @@ def parameter_rows(parameters: dict[str, ParameterEstimate]) -> list[list[str]]:
             for p in parameters.values()]
 
 
-def statistic_rows(statistics: dict[str, StatisticResult], replicates: int) -> list[list[str]]:
-    return [[s.name, number(s.statistic), number(s.null_mean), number(s.null_sd),
-             number(s.effect_size, 3), number(s.ratio_to_median, 3),
-             pvalue_text(s.pvalue, replicates)]
-            for s in statistics.values()]
+def statistic_rows(result: NeutralityResult) -> list[list[str]]:
+    """Rows of the statistics table, from :meth:`NeutralityResult.to_frame`."""
+    return [[row.statistic, number(row.observed), number(row.null_mean), number(row.null_sd),
+             number(row.effect_size, 3), number(row.ratio_to_median, 3),
+             pvalue_text(row.p_value, result.replicates)]
+            for row in result.to_frame().itertuples(index=False)]
 
 
 def verdict(result: NeutralityResult, alpha: float = ALPHA) -> str:
     """One sentence a reader can quote: rejected or not, by the combined test."""
-    combined = result.statistics["combined"]
+    combined = result.statistics[COMBINED]
     if not math.isfinite(combined.pvalue):
         return "No verdict: no statistic could be computed for this dataset."
     p_text = pvalue_text(combined.pvalue, result.replicates)
-    if combined.pvalue <= alpha:
-        strongest = max((s for k, s in result.statistics.items() if k != "combined"
+    if result.rejected(alpha):
+        strongest = max((s for k, s in result.statistics.items() if k != COMBINED
                          and math.isfinite(s.effect_size)),
                         key=lambda s: abs(s.effect_size), default=None)
         extra = (f"; the largest departure is {strongest.name} "
@@ -180,48 +124,6 @@ BLOCK_COLUMNS = {
     "dispersion_heterogeneity": ("taxon", "p", "theta_taxon", "theta_common", "at_grid_edge",
                                  "lr_contribution"),
 }
-
-
-def percent(share: float) -> str:
-    """A share in [0, 1] as a whole percentage; '<1%' and '>99%' near but not at 0 and 1."""
-    if not math.isfinite(share):
-        return "-"
-    if 0 < share < 0.005:
-        return "<1%"
-    if 0.995 <= share < 1:
-        return ">99%"
-    return f"{100 * share:.0f}%"
-
-
-def shorten_taxon(name: str, width: int) -> str:
-    """``name`` cut in the middle to ``width`` characters, marked '~'.
-
-    Start and end both stay: lineages and ids differ mostly at their ends
-    ('...;Lachnospiraceae;genus_12'), names at their start.
-    """
-    if len(name) <= width:
-        return name
-    head = (width - 1) // 3
-    return name[:head] + "~" + name[len(name) - (width - 1 - head):]
-
-
-def taxon_cells(labels: Sequence[str], members: Sequence[int], width: int) -> list[str]:
-    """Taxon labels cut to ``width``, keeping a pool's ' +N rare' suffix whole."""
-    cells = []
-    for label, count in zip(labels, members):
-        suffix = f" +{count - 1} rare" if count > 1 and label.endswith(" rare") else ""
-        head = label[:len(label) - len(suffix)]
-        cells.append(shorten_taxon(head, max(width - len(suffix), 4)) + suffix)
-    return cells
-
-
-def taxon_table(headers: Sequence[str], labels: Sequence[str], members: Sequence[int],
-                rows: Sequence[list[str]], align: str) -> list[str]:
-    """:func:`table` whose first column, taxon labels, is cut so that lines fit in WIDTH."""
-    others = sum(max([len(h)] + [len(r[c]) for r in rows]) for c, h in enumerate(headers[1:]))
-    width = max(len(headers[0]), WIDTH - others - 2 * (len(headers) - 1))
-    cells = taxon_cells(labels, members, width)
-    return table(headers, [[cell] + list(row) for cell, row in zip(cells, rows)], align)
 
 
 def stationary_block(diagnosis: pd.DataFrame) -> list[str]:
@@ -297,43 +199,15 @@ def diagnostic_tables(result: NeutralityResult) -> dict[str, pd.DataFrame]:
             if len(table) and set(BLOCK_COLUMNS.get(name, ())) <= set(table.columns)}
 
 
-DIAGNOSTIC_LEGENDS = {
-    "stationary_divergence":
-        "Stationary divergence. p: share of the metacommunity; zero obs/exp: samples "
-        "without reads, observed and expected under neutrality; part: the taxon's part of "
-        "the statistic (bias-corrected Kullback-Leibler divergence in nats; the parts sum to "
-        "the statistic); variability: variance of its relative abundance against the "
-        "neutral one; +N rare: pooled with N rarer taxa.",
-    "regrouping_invariance":
-        "Regrouping invariance. Volatility: squared changes of a group's angular-"
-        "transformed abundance between samples over their neutral expectation, averaged "
-        f"with the statistic's weights; groups in up to {ABUNDANCE_CLASSES} classes of equal "
-        "size by fitted abundance (fraction of reads). Under neutrality every class is near "
-        "1; a trend or spread across classes points to niche structure.",
-    "fluctuation_scaling":
-        "Fluctuation scaling. Mean and variance of each taxon's relative abundance across "
-        "samples, the variance corrected for sequencing noise; the line is fitted with "
-        "weights that give rare taxa, whose variance is poorly determined, less say. The "
-        "neutral expectation is "
-        "p (1 - p) / (1 + theta) per taxon; the replicates' exponent also carries sampling "
-        "and estimation effects and is what the p-value compares with. b near 1 is "
-        "drift-like, b near 2 points to multiplicative environmental noise.",
-    "dispersion_heterogeneity":
-        "Dispersion heterogeneity. LR part: the taxon's part of the likelihood-ratio "
-        "statistic (taxon-specific against common beta-binomial theta, per taxon beyond the "
-        "first and, for time series, corrected for autocorrelation; the parts sum to the "
-        "statistic). Own theta above the common one: the taxon varies less than the common "
-        "theta implies; below: more. * at the end of the fitted range.",
-}
-
-
 def diagnostics_legend(names: Sequence[str]) -> list[str]:
     """How to read the diagnostics blocks of the given statistics, one paragraph each."""
     lines = wrap("What drives each statistic in the observed data (descriptive; the tests "
                  "are the p-values).")
     for name in names:
-        if name in DIAGNOSTIC_LEGENDS:
-            lines += [""] + wrap(DIAGNOSTIC_LEGENDS[name])
+        cls = statistic_class(name)
+        if cls is not None:
+            lines += [""] + wrap(f"{cls.title}. "
+                                 + cls.how_to_read.format(abundance_classes=ABUNDANCE_CLASSES))
     return lines
 
 
@@ -370,15 +244,13 @@ def dataset_section(result: NeutralityResult, legend: bool = True) -> list[str]:
         parameter_rows(result.parameters), "lrrl") + [""]
     lines += heading("Statistics") + table(
         ["statistic", "observed", "null mean", "null sd", "effect", "obs/med", "p-value"],
-        statistic_rows(result.statistics, result.replicates)) + [""]
+        statistic_rows(result)) + [""]
     lines += wrap(verdict(result))
     if result.influence is not None:
         lines += wrap(influence_line(result))
     diagnostics = diagnostics_lines(result, legend)
     if diagnostics:
         lines += [""] + diagnostics
-    from driftscreen.report.taxa import taxa_lines
-
     taxa = taxa_lines(result, legend)
     if taxa:
         lines += [""] + taxa
@@ -406,26 +278,6 @@ def dataset_report(result: NeutralityResult) -> str:
 
 
 # ----------------------------------------------------------------------------- screen report
-#: What each statistic measures, for the methods paragraph of the screen report.
-STATISTIC_METHODS = {
-    "stationary_divergence":
-        "the Kullback-Leibler divergence of each taxon's abundance distribution from its "
-        "stationary neutral (beta-binomial) law, summed over taxa, rare taxa pooled into "
-        "groups (after Fisher & Mehta 2014, PNAS 111:13111)",
-    "regrouping_invariance":
-        "the variance, over R = {groupings} random groupings of taxa, of the log volatility "
-        "of the groups' angular-transformed abundances (the grouping invariance of neutral "
-        "drift, after Washburne et al. 2016, PLoS Comput. Biol. 12:e1005124; angular "
-        "transform of Anscombe 1948, Biometrika 35:246)",
-    "fluctuation_scaling":
-        "the exponent of Taylor's law between the sampling-corrected variance and the mean "
-        "of taxon abundances, weighted by the precision of each taxon's variance (Taylor "
-        "1961, Nature 189:732), calibrated in units of each table's own standard error of "
-        "the exponent (studentised bootstrap)",
-    "dispersion_heterogeneity":
-        "the likelihood ratio of taxon-specific against common beta-binomial dispersion, "
-        "with each taxon's mean profiled, per taxon and corrected for autocorrelation",
-}
 
 
 #: How the most influential samples were found, for the methods paragraph.
@@ -437,40 +289,6 @@ INFLUENCE_METHODS = (
     "(harmonic mean of the normal-tail p-values of its statistics against the full-data "
     "null distributions) was taken as the most influential sample, and the dataset was "
     "tested again without it with the same settings. ")
-
-
-def duration_text(seconds: float) -> str:
-    """``1h02m03s``, ``4m05s`` or ``7s``."""
-    seconds = int(round(max(seconds, 0.0)))
-    hours, rest = divmod(seconds, 3600)
-    minutes, secs = divmod(rest, 60)
-    if hours:
-        return f"{hours}h{minutes:02d}m{secs:02d}s"
-    return f"{minutes}m{secs:02d}s" if minutes else f"{secs}s"
-
-
-def qvalue_text(qvalue: float) -> str:
-    """A q-value in three decimals (scientific below 0.001); '-' when missing."""
-    if qvalue is None or not math.isfinite(qvalue):
-        return "-"
-    return f"{qvalue:.3f}" if qvalue >= 0.001 else f"{qvalue:.1e}"
-
-
-def verdict_word(qvalue: float, alpha: float = ALPHA) -> str:
-    """The screen's verdict on neutrality from the combined q-value."""
-    if qvalue is None or not math.isfinite(qvalue):
-        return "not tested"
-    return "rejected" if qvalue <= alpha else "not rejected"
-
-
-def wrapped_pairs(pairs: Sequence[tuple[str, str]]) -> list[str]:
-    """Key-value lines whose long values wrap under themselves."""
-    width = max(len(k) for k, _ in pairs)
-    lines: list[str] = []
-    for key, value in pairs:
-        lines += textwrap.wrap(value, WIDTH, initial_indent=f"{key.ljust(width)}  ",
-                               subsequent_indent=" " * (width + 2)) or [key]
-    return lines
 
 
 def intake_text(intake: Mapping[str, Any]) -> str:
@@ -485,11 +303,11 @@ def intake_text(intake: Mapping[str, Any]) -> str:
 
 
 def combined_qvalue(run: ScreenResult, index: int) -> float:
-    return run.qvalue(index, "combined")
+    return run.qvalue(index, COMBINED)
 
 
 def n_tested(run: ScreenResult) -> int:
-    values = run.qvalues.get("combined")
+    values = run.qvalues.get(COMBINED)
     return 0 if values is None else int(sum(math.isfinite(v) for v in values))
 
 
@@ -532,11 +350,6 @@ def summary_row(run: ScreenResult, index: int) -> list[str]:
             qvalue_text(q), verdict_word(q)]
 
 
-def shorten(text: str, width: int) -> str:
-    """``text`` cut to ``width`` characters, a cut marked with '~'."""
-    return text if len(text) <= width else text[:max(width - 1, 1)] + "~"
-
-
 def summary_table(run: ScreenResult) -> list[str]:
     """Datasets sorted by combined q-value, then p-value (untested last); names cut to fit."""
     headers = ["#", "dataset", "samples", "taxa", "theta", "rate", "p", "q", "verdict"]
@@ -544,7 +357,7 @@ def summary_table(run: ScreenResult) -> list[str]:
     def by_qvalue(index: int) -> tuple[bool, float, float, str]:
         q, outcome = combined_qvalue(run, index), run.outcomes[index]
         tested = math.isfinite(q)
-        p = outcome.pvalue("combined") if tested else 0.0
+        p = outcome.pvalue(COMBINED) if tested else 0.0
         return (not tested, q if tested else 0.0, p, outcome.name)
 
     rows = [summary_row(run, i) for i in sorted(range(len(run.outcomes)), key=by_qvalue)]
@@ -575,12 +388,6 @@ def summary_lines(run: ScreenResult) -> list[str]:
     return lines + wrap(legend)
 
 
-def sentence(text: str) -> str:
-    """``text`` with a capital first letter and a full stop."""
-    text = text.strip()
-    return text[:1].upper() + text[1:] + ("" if text.endswith(".") else ".")
-
-
 def outcome_section(run: ScreenResult, index: int) -> list[str]:
     """One dataset's section: the single-dataset block plus its q-value, or why not."""
     outcome = run.outcomes[index]
@@ -605,7 +412,7 @@ def statistics_used(run: ScreenResult) -> list[str]:
     names: list[str] = []
     for outcome in run.outcomes:
         if outcome.result is not None:
-            names += [n for n in outcome.result.statistics if n != "combined" and n not in names]
+            names += [n for n in outcome.result.statistics if n != COMBINED and n not in names]
     return names
 
 
@@ -640,13 +447,24 @@ def any_taxon_scan(run: ScreenResult) -> bool:
     return any(o.result is not None and o.result.taxa is not None for o in run.outcomes)
 
 
+def combined_statistics_text() -> str:
+    """Which statistics enter ``combined``: all, or all but those reported only."""
+    left_out = [cls.title.lower() for cls in reported_only()]
+    if not left_out:
+        return "all statistics"
+    return f"all statistics but {' and '.join(left_out)} (reported, not combined)"
+
+
+def statistic_methods(name: str, groupings: int) -> str:
+    """What statistic ``name`` measures, for the methods paragraph (its name if unknown)."""
+    cls = statistic_class(name)
+    return name if cls is None else cls.methods.format(groupings=groupings)
+
+
 def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
     """A paragraph for a manuscript, with B, R, the seed and the version actually used."""
-    from driftscreen.report.taxa import TAXA_METHODS
-
     settings = run.settings
-    described = [STATISTIC_METHODS.get(name, name).format(groupings=settings.groupings)
-                 for name in statistics_used(run)]
+    described = [statistic_methods(name, settings.groupings) for name in statistics_used(run)]
     if len(described) > 1:
         statistics = "; ".join(described[:-1]) + "; and " + described[-1]
     else:
@@ -678,7 +496,7 @@ def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
         "abundance distribution with the stationary law were given no p-value for time "
         f"series spanning fewer than {withheld_below(settings.null)} correlation times "
         "(fitted rate x span), where their calibration is unreliable. Per dataset, the "
-        "p-values of all statistics but dispersion heterogeneity (reported, not combined) "
+        f"p-values of {combined_statistics_text()} "
         "were combined by their harmonic mean p-value (Wilson 2019, Proc. Natl. Acad. Sci. USA "
         "116:1195), calibrated against the replicates' leave-one-out p-values, and q-values "
         "were computed per statistic across datasets by the Benjamini-Hochberg procedure "
@@ -702,8 +520,6 @@ def screen_report(run: ScreenResult, provenance: Mapping[str, Any], *, run_secon
     lines = screen_header(run, provenance, run_seconds, date) + [""] + summary_lines(run)
     for index in range(len(run.outcomes)):
         lines += [""] + outcome_section(run, index)
-    from driftscreen.report.taxa import TAXA_LEGEND, screen_taxa_lines
-
     across = screen_taxa_lines(run)
     if across:
         lines += [""] + across

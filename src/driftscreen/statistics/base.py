@@ -41,17 +41,31 @@ class Statistic(Protocol):
         True if its p-value enters ``combined``. A statistic whose calibration is not yet
         established on every kind of neutral data the validation study covers reports its
         p-value but stays out of the combination.
+    title:
+        Its name in prose (``"Stationary divergence"``), heading its diagnostics.
+    unit:
+        What its value is, for the axis of its null distribution.
+    methods:
+        What it measures, with its published basis, for the methods paragraph of a screen
+        (``{groupings}`` stands for the number of random groupings R).
+    how_to_read:
+        How to read its diagnostics, after its title (``{abundance_classes}`` stands for
+        the number of abundance classes the report shows).
     studentised:
-        Optional (absent means False). True if the statistic also gives each table's own standard error
-        (``standard_error(counts, design, fit, rng)``, shape ``(R,)``), and the calibration
-        measures the distance from the null median in those units, for the data and every
-        replicate alike: the studentised bootstrap, whose p-values depend less on how far
-        the fitted parameters are from the true ones (Hall 1992, *The Bootstrap and
+        Optional (absent means False). True if the statistic also gives each table's own
+        standard error (``standard_error(counts, design, fit, rng)``, shape ``(R,)``), and
+        the calibration measures the distance from the null median in those units, for the
+        data and every replicate alike: the studentised bootstrap, whose p-values depend less
+        on how far the fitted parameters are from the true ones (Hall 1992, *The Bootstrap and
         Edgeworth Expansion*; Davison & Hinkley 1997, *Bootstrap Methods and their
         Application*, ch. 4).
     """
 
     name: str
+    title: str
+    unit: str
+    methods: str
+    how_to_read: str
     needs_time: bool
     alternative: Alternative
     marginal: bool

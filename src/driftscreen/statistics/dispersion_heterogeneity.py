@@ -61,7 +61,7 @@ rate itself.)
 Computation. theta = c theta_0 with a per-table pilot theta_0: the pooled,
 sampling-corrected moment estimate with the samples treated as independent (around the
 precision-weighted composition, see
-:func:`driftscreen.statistics.stationary_divergence.precision_weighted_composition`),
+:func:`driftscreen.statistics.composition.precision_weighted_composition`),
 which is what the composite likelihood itself estimates, autocorrelation included. The
 profile max_{p_i} l_i is evaluated on the grid c = 2^-s, ..., 2^s (s = ``log2_span``;
 theta_i is bounded to that range around the pilot). At fixed theta, l_i is concave in p_i
@@ -93,12 +93,9 @@ import pandas as pd
 from scipy import special
 
 from driftscreen.dataset import Design
-from driftscreen.neutral.model import NeutralModel, NullFit
+from driftscreen.neutral.model import NeutralModel, NullFit, single_fit
 from driftscreen.statistics.base import Alternative
-from driftscreen.statistics.stationary_divergence import (
-    precision_weighted_composition,
-    single_fit,
-)
+from driftscreen.statistics.composition import precision_weighted_composition
 
 #: Bounds of the pilot v = 1/(1 + theta_0).
 PILOT_V_RANGE = (1e-7, 1.0 - 1e-7)
@@ -146,6 +143,20 @@ class DispersionHeterogeneity:
     """
 
     name: ClassVar[str] = "dispersion_heterogeneity"
+    #: How outputs name it, and what its value is (the axis of its null distribution).
+    title: ClassVar[str] = "Dispersion heterogeneity"
+    unit: ClassVar[str] = "likelihood ratio, taxon-specific vs common theta"
+    #: What it measures, for the methods paragraph ({groupings}: R).
+    methods: ClassVar[str] = (
+        "the likelihood ratio of taxon-specific against common beta-binomial dispersion, "
+        "with each taxon's mean profiled, per taxon and corrected for autocorrelation")
+    #: How to read its diagnostics ({abundance_classes}: classes of the report).
+    how_to_read: ClassVar[str] = (
+        "LR part: the taxon's part of the likelihood-ratio "
+        "statistic (taxon-specific against common beta-binomial theta, per taxon beyond the "
+        "first and, for time series, corrected for autocorrelation; the parts sum to the "
+        "statistic). Own theta above the common one: the taxon varies less than the common "
+        "theta implies; below: more. * at the end of the fitted range.")
     needs_time: ClassVar[bool] = False
     alternative: ClassVar[Alternative] = "greater"
     marginal: ClassVar[bool] = True

@@ -91,6 +91,24 @@ class FluctuationScaling:
     """
 
     name: ClassVar[str] = "fluctuation_scaling"
+    #: How outputs name it, and what its value is (the axis of its null distribution).
+    title: ClassVar[str] = "Fluctuation scaling"
+    unit: ClassVar[str] = "Taylor exponent b"
+    #: What it measures, for the methods paragraph ({groupings}: R).
+    methods: ClassVar[str] = (
+        "the exponent of Taylor's law between the sampling-corrected variance and the mean "
+        "of taxon abundances, weighted by the precision of each taxon's variance (Taylor "
+        "1961, Nature 189:732), calibrated in units of each table's own standard error of "
+        "the exponent (studentised bootstrap)")
+    #: How to read its diagnostics ({abundance_classes}: classes of the report).
+    how_to_read: ClassVar[str] = (
+        "Mean and variance of each taxon's relative abundance across "
+        "samples, the variance corrected for sequencing noise; the line is fitted with "
+        "weights that give rare taxa, whose variance is poorly determined, less say. The "
+        "neutral expectation is "
+        "p (1 - p) / (1 + theta) per taxon; the replicates' exponent also carries sampling "
+        "and estimation effects and is what the p-value compares with. b near 1 is "
+        "drift-like, b near 2 points to multiplicative environmental noise.")
     needs_time: ClassVar[bool] = False
     alternative: ClassVar[Alternative] = "two-sided"
     marginal: ClassVar[bool] = True

@@ -59,9 +59,9 @@ import pandas as pd
 from scipy import special
 
 from driftscreen.dataset import Design
-from driftscreen.neutral.model import NeutralModel, NullFit, sampling_variance_factor
+from driftscreen.neutral.model import (NeutralModel, NullFit, sampling_variance_factor,
+                                       single_fit)
 from driftscreen.statistics.base import Alternative
-from driftscreen.statistics.stationary_divergence import single_fit
 
 
 @dataclass(frozen=True)
@@ -87,6 +87,22 @@ class RegroupingInvariance:
     """
 
     name: ClassVar[str] = "regrouping_invariance"
+    #: How outputs name it, and what its value is (the axis of its null distribution).
+    title: ClassVar[str] = "Regrouping invariance"
+    unit: ClassVar[str] = "variance of log volatility over groupings of taxa"
+    #: What it measures, for the methods paragraph ({groupings}: R).
+    methods: ClassVar[str] = (
+        "the variance, over R = {groupings} random groupings of taxa, of the log volatility "
+        "of the groups' angular-transformed abundances (the grouping invariance of neutral "
+        "drift, after Washburne et al. 2016, PLoS Comput. Biol. 12:e1005124; angular "
+        "transform of Anscombe 1948, Biometrika 35:246)")
+    #: How to read its diagnostics ({abundance_classes}: classes of the report).
+    how_to_read: ClassVar[str] = (
+        "Volatility: squared changes of a group's angular-"
+        "transformed abundance between samples over their neutral expectation, averaged "
+        "with the statistic's weights; groups in up to {abundance_classes} classes of equal "
+        "size by fitted abundance (fraction of reads). Under neutrality every class is near "
+        "1; a trend or spread across classes points to niche structure.")
     needs_time: ClassVar[bool] = True
     alternative: ClassVar[Alternative] = "greater"
     marginal: ClassVar[bool] = False

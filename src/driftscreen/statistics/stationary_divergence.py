@@ -69,8 +69,9 @@ import pandas as pd
 from scipy import special
 
 from driftscreen.dataset import Design
-from driftscreen.neutral.model import NeutralModel, NullFit, read_theta
+from driftscreen.neutral.model import NeutralModel, NullFit, read_theta, single_fit
 from driftscreen.statistics.base import Alternative
+from driftscreen.statistics.composition import precision_weighted_composition
 from driftscreen.statistics.pooling import PooledTaxa, pool_rare_taxa
 
 #: Widest depth ratio within one depth bin (unless more than ``max_depth_bins`` are needed).
@@ -109,6 +110,21 @@ class StationaryDivergence:
     """
 
     name: ClassVar[str] = "stationary_divergence"
+    #: How outputs name it, and what its value is (the axis of its null distribution).
+    title: ClassVar[str] = "Stationary divergence"
+    unit: ClassVar[str] = "KL divergence from the stationary law, summed over taxa (nats)"
+    #: What it measures, for the methods paragraph ({groupings}: R).
+    methods: ClassVar[str] = (
+        "the Kullback-Leibler divergence of each taxon's abundance distribution from its "
+        "stationary neutral (beta-binomial) law, summed over taxa, rare taxa pooled into "
+        "groups (after Fisher & Mehta 2014, PNAS 111:13111)")
+    #: How to read its diagnostics ({abundance_classes}: classes of the report).
+    how_to_read: ClassVar[str] = (
+        "p: share of the metacommunity; zero obs/exp: samples "
+        "without reads, observed and expected under neutrality; part: the taxon's part of "
+        "the statistic (bias-corrected Kullback-Leibler divergence in nats; the parts sum to "
+        "the statistic); variability: variance of its relative abundance against the "
+        "neutral one; +N rare: pooled with N rarer taxa.")
     needs_time: ClassVar[bool] = False
     alternative: ClassVar[Alternative] = "greater"
     marginal: ClassVar[bool] = True
@@ -185,31 +201,6 @@ class StationaryDivergence:
         table = table[parts.present[0]]
         return table.sort_values("contribution", ascending=False, kind="stable"
                                  ).reset_index(drop=True)
-
-
-def single_fit(model: NeutralModel) -> NullFit:
-    """A batch-of-one NullFit holding ``model``."""
-    rate = None if model.rate is None else np.array([model.rate])
-    return NullFit(p=model.p[None], theta=np.array([model.theta]), rate=rate,
-                   clipped=np.array([False]), noise=np.array([model.noise]))
-
-
-def precision_weighted_composition(counts: np.ndarray, depths: np.ndarray,
-                                   theta: np.ndarray) -> np.ndarray:
-    """Inverse-variance weighted mean relative abundance of every taxon, shape ``(R, K)``.
-
-    At stationarity Var(N_it / n_t) = p_i (1 - p_i)(v + (1 - v)/n_t), v = 1/(1 + theta)
-    (design note, section 2), so weighting sample t by 1/(v + (1 - v)/n_t) gives the
-    precision-weighted estimate sum_t u_t N_it / sum_t u_t n_t, u_t = 1/(1 + (n_t - 1) v).
-    With equal depths it is the pooled fraction (the fitted p); with depths that vary it
-    is far less noisy than the pooled fraction, which leans on the deepest samples
-    although drift, not sampling, dominates their variance. Rows sum to 1; taxa without
-    reads get 0.
-    """
-    v = 1.0 / (1.0 + theta)
-    weights = 1.0 / (1.0 + (depths - 1.0) * v[:, None])                  # (R, T)
-    weighted = np.einsum("rtk,rt->rk", counts, weights)
-    return weighted / (weights @ depths)[:, None]
 
 
 def beta_shapes(p: np.ndarray, theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

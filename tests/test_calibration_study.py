@@ -7,7 +7,7 @@ niche datasets must be rejected. A few shrunken datasets of every new neutral co
 binomial bounds, and the generators themselves are checked: disturbed at the first sample,
 technical noise with the Dirichlet-multinomial excess variance (Mosimann 1962), short
 series, communities of at least 10^4 individuals. The full study is
-`python -m driftscreen.validation`.
+`python -m driftscreen.calibration_study`.
 """
 
 from __future__ import annotations
@@ -22,7 +22,7 @@ from scipy import stats
 
 from driftscreen.dataset import Design
 from driftscreen.niche import StochasticLogistic
-from driftscreen.validation import (
+from driftscreen.calibration_study import (
     COLLECTIONS,
     MAX_GENERATIONS,
     MAX_GENERATIONS_PER_DAY,
@@ -388,8 +388,8 @@ def test_report_has_a_table_per_collection_with_band_verdicts() -> None:
                            + synthetic_rows("noise100", 10, 20, read_precision=100.0))
     neutral.loc[neutral["collection"] == "noise100", "noise_precision_hat"] = 120.0
     niche = pd.DataFrame(synthetic_rows("logistic-noise300", 20, 20))
-    text = report(neutral, niche, 0.05, "python -m driftscreen.validation --neutral 20", 60.0)
-    assert "    python -m driftscreen.validation --neutral 20" in text
+    text = report(neutral, niche, 0.05, "python -m driftscreen.calibration_study --neutral 20", 60.0)
+    assert "    python -m driftscreen.calibration_study --neutral 20" in text
     assert "target band is 0.03 to 0.07 at alpha = 0.05" in text
     lines = text.splitlines()
     stationary = lines.index("### stationary (20 datasets)")

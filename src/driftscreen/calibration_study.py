@@ -36,7 +36,7 @@ per dataset, drawn at random, so that the p-values are independent) and, on nich
 the recall of the five taxa with the largest true departures (the ``departures`` of the
 niche models: the responding taxa of the tracking collection, the largest carrying
 capacities of the others). Run the whole study with
-``python -m driftscreen.validation`` (see ``--help``); a small version runs in the test suite.
+``python -m driftscreen.calibration_study`` (see ``--help``); a small version runs in the test suite.
 """
 
 from __future__ import annotations
@@ -54,7 +54,7 @@ import pandas as pd
 from joblib import Parallel, delayed
 from scipy.stats import binomtest, kstest
 
-from driftscreen import __version__, seeds
+from driftscreen import seeds
 from driftscreen.calibrate import correlation_times, neutrality_test
 from driftscreen.cli import Parser
 from driftscreen.dataset import Dataset, Design
@@ -73,6 +73,7 @@ from driftscreen.niche import EnvironmentalTracking, NoisyLotkaVolterra, Stochas
 from driftscreen.results import NeutralityResult
 from driftscreen.synthetic import DesignSpec, as_dataset, metacommunity
 from driftscreen.taxon_scan import LEVEL as TAXON_LEVEL
+from driftscreen.version import __version__
 
 #: Individuals in the stationary collection's discrete Wright-Fisher community (at least).
 WRIGHT_FISHER_SIZE = 2000
@@ -852,7 +853,7 @@ def report(neutral: pd.DataFrame, niche: pd.DataFrame, alpha: float, command: st
              f"({len(neutral)} neutral and {len(niche)} niche datasets; {seconds / 60:.1f} "
              f"minutes of wall time.) Rejection rates at alpha = {alpha:g}, with Wilson 95% "
              "intervals. The collections, their generators and the niche models are "
-             "described in `src/driftscreen/validation.py`.", ""]
+             "described in `src/driftscreen/calibration_study.py`.", ""]
     if len(neutral):
         parts += false_positive_sections(with_factors(neutral), alpha)
     if len(niche):
@@ -889,7 +890,7 @@ def count(text: str) -> int:
 
 def build_parser() -> argparse.ArgumentParser:
     parser = Parser(
-        prog="python -m driftscreen.validation",
+        prog="python -m driftscreen.calibration_study",
         description="Run the validation study: false-positive rates on simulated neutral "
                     "datasets and power on simulated niche datasets.")
     parser.add_argument("--collections", type=collection_list, default=list(COLLECTIONS),
@@ -921,7 +922,7 @@ def main(argv: Sequence[str] | None = None) -> int:
                       seed=args.seed, jobs=args.jobs)
     neutral = frame[frame["generator"].isin(NEUTRAL_GENERATORS)]
     niche = frame[~frame["generator"].isin(NEUTRAL_GENERATORS)]
-    command = "python -m driftscreen.validation " + " ".join(
+    command = "python -m driftscreen.calibration_study " + " ".join(
         sys.argv[1:] if argv is None else argv)
     text = report(neutral, niche, args.alpha, command.strip(), time.perf_counter() - start)
     atomic_write_text(args.out, text)

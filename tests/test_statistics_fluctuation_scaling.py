@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from scipy import stats
 
 from driftscreen.neutral.fit import fitted_model
 from driftscreen.neutral.model import NeutralModel
@@ -52,56 +53,45 @@ def test_taylor_fit_ignores_unusable_taxa_and_needs_three():
                                slope, rtol=1e-12)
 
 
-def test_weighted_fit_matches_numpy_polyfit():
+def test_weighted_fit_and_its_standard_error_match_numpy_polyfit():
     # Source: numpy.polyfit with weights w minimises sum (w_i r_i)^2, so w = sqrt(weights)
-    # gives the weighted least-squares line of log variance on log mean.
+    # gives the weighted least-squares line of log variance on log mean; with cov=True it
+    # scales the covariance by the weighted residual sum of squares over n - 2, the
+    # weighted least-squares standard error of the slope.
     rng = np.random.default_rng(4)
     mean = np.exp(rng.uniform(-9, -1, (3, 30)))
     variance = mean ** 1.3 * np.exp(rng.normal(0, 0.5, (3, 30)))
     weights = rng.uniform(0.01, 1.0, (3, 30))
     usable = rng.random((3, 30)) < 0.8
     intercept, slope = taylor_fit(mean, variance, usable, weights)
+    se = slope_standard_error(mean, variance, usable, weights)
     for r in range(3):
         keep = usable[r]
-        b, c = np.polyfit(np.log(mean[r, keep]), np.log(variance[r, keep]), 1,
-                          w=np.sqrt(weights[r, keep]))
+        (b, c), cov = np.polyfit(np.log(mean[r, keep]), np.log(variance[r, keep]), 1,
+                                 w=np.sqrt(weights[r, keep]), cov=True)
         assert slope[r] == pytest.approx(b, rel=1e-10)
         assert intercept[r] == pytest.approx(c, rel=1e-10)
+        assert se[r] == pytest.approx(np.sqrt(cov[0, 0]), rel=1e-10)
 
 
 def test_slope_standard_error_matches_scipy_linregress_unweighted():
     # Source: scipy.stats.linregress, whose stderr is the ordinary least-squares standard
     # error of the slope, sqrt(sum r^2 / ((n - 2) Sxx)).
-    from scipy import stats
-
     rng = np.random.default_rng(8)
     mean = np.exp(rng.uniform(-9, -1, (2, 25)))
     variance = mean ** 1.2 * np.exp(rng.normal(0, 0.4, (2, 25)))
-    usable = np.ones_like(mean, dtype=bool)
-    se = slope_standard_error(mean, variance, usable)
+    se = slope_standard_error(mean, variance, np.ones_like(mean, dtype=bool))
     for r in range(2):
         fit = stats.linregress(np.log(mean[r]), np.log(variance[r]))
         assert se[r] == pytest.approx(fit.stderr, rel=1e-10)
 
 
-def test_weighted_slope_standard_error_matches_numpy_polyfit_covariance():
-    # Source: numpy.polyfit(w=sqrt(weights), cov=True) scales the covariance by the weighted
-    # residual sum of squares over n - 2, the weighted least-squares standard error.
-    rng = np.random.default_rng(9)
-    mean = np.exp(rng.uniform(-9, -1, (3, 30)))
-    variance = mean ** 1.3 * np.exp(rng.normal(0, 0.5, (3, 30)))
-    weights = rng.uniform(0.01, 1.0, (3, 30))
-    usable = rng.random((3, 30)) < 0.8
-    usable[2, :3], usable[2, 3:] = True, False
-    se = slope_standard_error(mean, variance, usable, weights)
-    for r in range(2):
-        keep = usable[r]
-        _, cov = np.polyfit(np.log(mean[r, keep]), np.log(variance[r, keep]), 1,
-                            w=np.sqrt(weights[r, keep]), cov=True)
-        assert se[r] == pytest.approx(np.sqrt(cov[0, 0]), rel=1e-10)
-    assert np.isfinite(se[2])  # three taxa leave one residual degree of freedom
-    usable[2, 2] = False
-    assert np.isnan(slope_standard_error(mean, variance, usable, weights)[2])
+def test_slope_standard_error_needs_one_residual_degree_of_freedom():
+    mean = np.array([[0.1, 0.01, 0.001, 0.3]])
+    variance = np.array([[0.02, 0.001, 0.0002, 0.05]])
+    three = np.array([[True, True, True, False]])
+    assert np.isfinite(slope_standard_error(mean, variance, three))[0]
+    assert np.isnan(slope_standard_error(mean, variance, three & [[True, True, False, False]]))[0]
 
 
 def test_standard_error_shrinks_with_more_samples_on_neutral_series():

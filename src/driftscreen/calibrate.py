@@ -155,7 +155,8 @@ def compute_scales(statistics: tuple[Statistic, ...], counts: np.ndarray, design
                    fit: NullFit, stream: np.random.SeedSequence) -> np.ndarray:
     """Each table's standard error of every studentised statistic (1 for the others),
     shape ``(R, S)``; the same fresh generators as :func:`compute_statistics`."""
-    columns = [stat.standard_error(counts, design, fit, seeds.generator(seeds.substream(stream, j)))
+    columns = [stat.standard_error(counts, design, fit,
+                                   seeds.generator(seeds.substream(stream, j)))
                if is_studentised(stat) else np.ones(counts.shape[0])
                for j, stat in enumerate(statistics)]
     return np.column_stack(columns).astype(np.float64)

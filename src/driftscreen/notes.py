@@ -5,8 +5,8 @@ it: what the design could have detected (:func:`driftscreen.power.detectable_lin
 datasets whose neutrality is not rejected) and how the p-values move at a tenfold lower
 depth (:func:`driftscreen.reanalysis.depth_sensitivity_line`, for datasets converted from
 relative abundances). The rule for "not rejected" is one: the combined q-value across the
-datasets tested together is above :data:`driftscreen.results.ALPHA`; a single test is a screen of one dataset,
-whose q-value is its p-value. A dataset whose notes already hold a step's line (a record
+datasets tested together is above :data:`driftscreen.results.ALPHA`; a single test is a
+screen of one dataset, whose q-value is its p-value. A dataset whose notes already hold a step's line (a record
 reused from the store) keeps it, so a resumed screen computes only the lines still missing.
 """
 

@@ -10,10 +10,10 @@ Every file is written through a temporary file and a rename
 or none. The fingerprint holds everything that changes results: the driftscreen version,
 the SHA-256 of every input file, the intake options, replicates, groupings, seed and the
 configured statistics, and the options of the follow-ups (:func:`screen_fingerprint`:
-``detectable`` when on, ``influence`` when off, the null's options, the per-taxon scan). A run with the same fingerprint reuses every finished
-record; a run with another fingerprint is refused, naming what differs. A record holds the
-dataset's result with its follow-ups (e.g. its most influential sample), so a resumed run
-does not redo them. A settings file or record that cannot be read, or is of another
+``detectable`` when on, ``influence`` when off, the null's options, the per-taxon scan).
+A run with the same fingerprint reuses every finished record; a run with another
+fingerprint is refused, naming what differs. A record holds the dataset's result with its
+follow-ups (e.g. its most influential sample), so a resumed run does not redo them. A settings file or record that cannot be read, or is of another
 layout, means the folder holds no store of this version: it is refused in one line (a new
 ``--out``, or remove the store folder), never overwritten and never mixed with a new run.
 """

@@ -54,10 +54,10 @@ taxon's own replicates, twice the smaller of (1 + #{replicates <= it}) / (B + 1)
 (1 + #{replicates >= it}) / (B + 1) (the null laws are skewed: distance from the median
 would let a taxon seen in nearly every sample hide a quarter of absences behind the
 replicates' other tail); an effect beyond every replicate on its side gets 1/(B + 1)
-times the tail of a normal law fitted to the replicates beyond the farthest of them (a conditional tail extrapolation, in the spirit of
-Knijnenburg et al. 2009, Bioinformatics 25:i161, who fit a generalised Pareto tail), so
-that strong departures stay ordered past the resolution of B replicates. A taxon's
-combined p-value is that of -log10 of the harmonic mean p-value (Wilson 2019, PNAS
+times the tail of a normal law fitted to the replicates beyond the farthest of them (a
+conditional tail extrapolation, in the spirit of Knijnenburg et al. 2009, Bioinformatics
+25:i161, who fit a generalised Pareto tail), so that strong departures stay ordered past
+the resolution of B replicates. A taxon's combined p-value is that of -log10 of the harmonic mean p-value (Wilson 2019, PNAS
 116:1195) of its effects' p-values, calibrated against the same quantity of the
 replicates' leave-one-out p-values, pooled over every taxon of the dataset: each taxon's
 own B replicates cannot give p-values below 1/(B + 1), too coarse for a

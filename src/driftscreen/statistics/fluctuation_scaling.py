@@ -280,7 +280,8 @@ class TaylorLine:
     def slope_standard_error(self) -> np.ndarray:
         """se of the slope from the weighted residuals, ``(R,)`` (see
         :func:`slope_standard_error`)."""
-        residual = self.log_variance - self.intercept[:, None] - self.slope[:, None] * self.log_mean
+        fitted = self.intercept[:, None] + self.slope[:, None] * self.log_mean
+        residual = self.log_variance - fitted
         squares = (self.weight * residual * residual).sum(axis=1)
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.sqrt(squares / ((self.n_used - 2) * self.sxx))

@@ -367,7 +367,7 @@ def split_replicates(name: str, members: np.ndarray, table: Table, biological: B
         best = max(rows, key=lambda row: (depth[row], -row))
         others = [row for row in rows if row != best]
         if times is not None:
-            check_same_time(name, best, others, table, times)
+            check_same_time(name, best, others, table, times, biological)
         kept.append(best)
         extras += others
         kept_of += [best] * len(others)
@@ -376,17 +376,19 @@ def split_replicates(name: str, members: np.ndarray, table: Table, biological: B
 
 
 def check_same_time(name: str, kept: int, others: Sequence[int], table: Table,
-                    times: Times) -> None:
+                    times: Times, biological: Biological) -> None:
     """Technical replicates of a time series come from one community at one time."""
     for other in others:
         if times.values[other] != times.values[kept]:
-            raise InputError(f"samples '{table.samples[kept]}' and '{table.samples[other]}' "
-                             "are sequenced samples of one biological sample but have the "
-                             f"different times '{times.text[kept]}' and '{times.text[other]}'",
+            first, second = sorted((kept, other))
+            raise InputError(f"samples '{table.samples[first]}' and '{table.samples[second]}' "
+                             f"come from one biological sample ('{biological.names[kept]}' in "
+                             f"column '{biological.column}') but have different times "
+                             f"('{times.text[first]}', '{times.text[second]}')",
                              file=times.label, place=f"dataset '{name}'",
-                             fix="give the sequenced samples of a biological sample its one "
-                                 f"time in column '{times.column}', or name the biological "
-                                 "samples apart")
+                             fix="give the sequenced samples of one biological sample the same "
+                                 f"time in column '{times.column}', or different biological "
+                                 "sample names")
 
 
 def technical_replicates(members: np.ndarray, extras: np.ndarray, kept_of: np.ndarray,

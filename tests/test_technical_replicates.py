@@ -14,11 +14,13 @@ from cli_run import run_cli
 
 from driftscreen.calibrate import neutrality_test
 from driftscreen.dataset import Dataset, Design, TechnicalReplicates
+from driftscreen.influence import without_sample
 from driftscreen.intake import read_datasets
 from driftscreen.neutral.model import NeutralModel, sampling_variance_factor
 from driftscreen.neutral.simulate import simulate_with_replicates
 from driftscreen.neutral.technical import replicate_noise
 from driftscreen.neutral.wright_fisher import dirichlet_multinomial_reads
+from driftscreen.reanalysis import at_lower_depth
 
 PRECISION = 300.0
 
@@ -248,3 +250,35 @@ def test_jobs_do_not_change_results_with_replicates(tmp_path):
     parameters = outputs["1"]["parameters.tsv"].decode()
     assert "read precision from 4 technical replicate pairs" in parameters
     assert '"replicate_by": "extract"' in outputs["1"]["results.json"].decode()
+    methods = (tmp_path / "jobs1" / "report.txt").read_text(encoding="utf-8")
+    assert "estimated from its pairs of technical" in " ".join(methods.split())
+
+
+def test_a_dataset_without_a_sample_keeps_the_replicates_of_the_others():
+    dataset = simulated_dataset(True, n_samples=12, n_taxa=6, every=3)   # pairs of 0, 3, 6, 9
+    without = without_sample(dataset, 3)
+    technical = without.technical
+    assert technical.samples == tuple(s for s in dataset.technical.samples
+                                      if not s.endswith("_r03"))
+    assert technical.of.tolist() == [0, 5, 8]          # samples 0, 6, 9 after removing 3
+    for e, name in enumerate(technical.samples):
+        original = dataset.technical.samples.index(name)
+        assert without.samples[technical.of[e]] == dataset.samples[dataset.technical.of[original]]
+
+
+def test_the_lower_depth_reanalysis_converts_the_replicates_too():
+    dataset = simulated_dataset(True, n_samples=12, n_taxa=6, every=3)
+    lower = at_lower_depth(dataset, 0.1)
+    assert lower.technical.depths.tolist() == np.rint(dataset.technical.depths * 0.1).tolist()
+    assert lower.technical.counts.shape[1] == lower.n_taxa
+
+
+def test_replicate_by_without_repeats_says_so(tmp_path):
+    (tmp_path / "counts.tsv").write_text("taxon\tS1\tS2\tS3\nA\t5\t20\t4\nB\t5\t10\t6\n",
+                                         encoding="utf-8")
+    (tmp_path / "meta.tsv").write_text("sample\textract\nS1\tE1\nS2\tE2\nS3\tE3\n",
+                                       encoding="utf-8")
+    (dataset,) = read_datasets(tmp_path / "counts.tsv", tmp_path / "meta.tsv",
+                               replicate_by="extract")
+    assert dataset.technical is None and dataset.samples == ("S1", "S2", "S3")
+    assert any("no biological sample was sequenced more than once" in n for n in dataset.notes)

@@ -60,6 +60,7 @@ from driftscreen.results import (
     NeutralityResult,
     ParameterEstimate,
     StatisticResult,
+    technical_source,
 )
 from driftscreen.statistics.base import Statistic, is_studentised
 from driftscreen.statistics.combination import harmonic_mean_pvalue
@@ -494,8 +495,7 @@ def precision_interval(raw: float, simulated: float, replicates: np.ndarray,
             return None
         value = 1.0 / options.fixed_noise - 1.0
         return ParameterEstimate("precision", value, value, value, "fixed")
-    source = (f"from {pairs} technical replicate {'pair' if pairs == 1 else 'pairs'}"
-              if pairs else "")
+    source = technical_source(pairs) if pairs else ""
     if not pairs and (not design.is_time_series
                       or (simulated <= 0 and not noise_identifiable(design, rate))):
         return None

@@ -346,6 +346,9 @@ def build_dataset(name: str, members: np.ndarray, table: Table, times: Times | N
         technical, replicate_notes = technical_replicates(members, extras, kept_of, table,
                                                           present, biological)
         notes += replicate_notes
+    elif biological is not None:
+        notes.append(f"no biological sample was sequenced more than once (column "
+                     f"'{biological.column}'): no technical replicates")
     return Dataset(name=name, counts=kept, taxa=taxa, samples=samples,
                    design=Design(depths=depths, times=days), notes=tuple(notes),
                    warnings=table.warnings + single_read_warning(samples, depths),

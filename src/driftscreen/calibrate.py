@@ -8,7 +8,10 @@ Recipe (Davison & Hinkley 1997, "Bootstrap Methods and their Application", ch. 4
    conditioned on its observed first sample
    (:func:`driftscreen.neutral.simulate.simulate_conditioned`), so a community still
    relaxing from a disturbance is compared with neutral communities relaxing from the
-   same start, and reads carry the technical noise estimated from the data.
+   same start, and reads carry the technical noise estimated from the data (from its
+   technical replicates where it has them: then every replicate dataset carries simulated
+   technical replicates too, and its noise is re-estimated from them,
+   :func:`fit_null`).
    The moment estimates of theta and rate are biased in short or strongly autocorrelated
    series, and the null distributions of several statistics depend on them; so a pilot
    of neutral replicates first measures the estimators' median bias on the log scale and

@@ -16,6 +16,9 @@ C = 1/g - 1 (Mosimann 1962, Biometrika 49:65), drawn independently for every sam
 :func:`simulate_conditioned` conditions a time series on its observed first sample:
 the community at the first time is drawn from its posterior given those reads and the
 later samples follow from it; the first sample itself is the observed one.
+:func:`simulate_with_replicates` also reads technical replicates: further reads of the
+latent community of a sample, drawn right after that sample's own reads from the same
+block stream (without technical replicates, the draws are those of :func:`simulate`).
 
 Reproducibility: replicates are simulated in blocks of :func:`replicates_per_block`
 replicates (a fixed function of the number of taxa and samples). Block ``b`` draws from

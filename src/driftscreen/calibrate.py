@@ -676,7 +676,8 @@ def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int =
     statistics:
         Statistics to run (default: all that the design allows).
     noise:
-        Technical noise of the reads: ``"estimate"`` (from the data; time series only),
+        Technical noise of the reads: ``"estimate"`` (from the dataset's technical
+        replicates where it has them, for any design; else from the data, time series only),
         ``"off"`` (multinomial reads) or a fixed Dirichlet-multinomial precision C.
     start:
         ``"first-sample"``: time-series replicates are conditioned on the observed first

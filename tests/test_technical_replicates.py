@@ -17,7 +17,8 @@ from driftscreen.dataset import Dataset, Design, TechnicalReplicates
 from driftscreen.influence import without_sample
 from driftscreen.intake import read_datasets
 from driftscreen.neutral.model import NeutralModel, sampling_variance_factor
-from driftscreen.neutral.simulate import simulate_with_replicates
+from driftscreen.neutral.simulate import (simulate, simulate_conditioned,
+                                          simulate_with_replicates)
 from driftscreen.neutral.technical import replicate_noise
 from driftscreen.neutral.wright_fisher import dirichlet_multinomial_reads
 from driftscreen.reanalysis import at_lower_depth
@@ -282,3 +283,33 @@ def test_replicate_by_without_repeats_says_so(tmp_path):
                                replicate_by="extract")
     assert dataset.technical is None and dataset.samples == ("S1", "S2", "S3")
     assert any("no biological sample was sequenced more than once" in n for n in dataset.notes)
+
+
+def test_simulation_without_replicates_draws_as_before():
+    dataset = simulated_dataset(False, n_samples=10, n_taxa=5)
+    model = NeutralModel(np.full(dataset.n_taxa, 1.0 / dataset.n_taxa), 30.0, 0.3, 0.01)
+    counts, extra = simulate_with_replicates(model, dataset.design, 7, None, 9)
+    assert extra.shape == (7, 0, dataset.n_taxa)
+    np.testing.assert_array_equal(counts, simulate(model, dataset.design, 7, 9))
+    conditioned, _ = simulate_with_replicates(model, dataset.design, 7, None, 9,
+                                              first_counts=dataset.counts[0])
+    np.testing.assert_array_equal(conditioned, simulate_conditioned(
+        model, dataset.design, 7, dataset.counts[0], 9))
+
+
+@pytest.mark.parametrize("snapshot", [False, True], ids=["time-series", "snapshot"])
+def test_simulated_replicates_share_the_latent_community_of_their_sample(snapshot):
+    # Read from the same community, a pair differs by reads alone: the estimator recovers
+    # the model's g; read from another sample's community, drift would inflate it.
+    dataset = simulated_dataset(snapshot, n_samples=20, n_taxa=10, every=2)
+    g = 1.0 / (1.0 + PRECISION)
+    model = NeutralModel(np.full(dataset.n_taxa, 0.1), 5.0, None if snapshot else 0.5, g)
+    counts, extra = simulate_with_replicates(model, dataset.design, 400, dataset.technical, 10)
+    technical = dataset.technical
+    assert np.array_equal(extra.sum(axis=2), np.broadcast_to(technical.depths, (400, 10)))
+    estimates = replicate_noise(counts[:, technical.of], extra,
+                                dataset.design.depths[technical.of], technical.depths)
+    assert abs(estimates.mean() - g) < 5 * estimates.std() / np.sqrt(estimates.size)
+    shifted = replicate_noise(counts[:, technical.of + 1], extra,
+                              dataset.design.depths[technical.of + 1], technical.depths)
+    assert shifted.mean() > 10 * g

@@ -198,6 +198,12 @@ def replicate_pairs(dataset: Dataset) -> int:
     return 0 if dataset.technical is None else dataset.technical.n_pairs
 
 
+def noise_pairs(dataset: Dataset, options: NullOptions) -> int:
+    """Pairs of technical replicates the read precision comes from (0: none used)."""
+    technical = noise_replicates(dataset, options)
+    return 0 if technical is None else technical.n_pairs
+
+
 def fit_null(counts: np.ndarray, design: Design, options: NullOptions,
              technical: TechnicalReplicates | None = None,
              extra: np.ndarray | None = None) -> NullFit:
@@ -632,8 +638,7 @@ def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityRes
     precision = precision_interval(raw.noise, model.noise,
                                    np.concatenate([out.noise for out in outputs]),
                                    plan.settings.null, plan.dataset.design, raw.rate,
-                                   replicate_pairs(plan.dataset)
-                                   if noise_replicates(plan.dataset, plan.settings.null) else 0)
+                                   noise_pairs(plan.dataset, plan.settings.null))
     if precision is not None:
         parameters["precision"] = precision
     return NeutralityResult(

@@ -159,6 +159,22 @@ CASES = [
          meta=META, kwargs={"depth_by": "reads"}),
     Case("sample-id-missing", r"meta\.tsv: header: no column 'id' \(option --sample-id\)",
          meta=META, kwargs={"sample_id": "id"}),
+    Case("replicate-by-missing", r"meta\.tsv: header: no column 'extract' \(option "
+                                 r"--replicate-by\); use one of the columns",
+         meta=META, kwargs={"replicate_by": "extract"}),
+    Case("replicate-by-needs-metadata", r"^option --replicate-by: needs a metadata table; "
+                                        r"give --metadata FILE$",
+         kwargs={"replicate_by": "extract"}),
+    Case("replicate-empty-name", r"meta\.tsv: row 3, column 'extract': empty biological "
+                                 r"sample name; write the biological sample",
+         meta=meta_with("extract", ["E1", "", "E3"]), kwargs={"replicate_by": "extract"}),
+    Case("replicates-at-two-times", r"meta\.tsv: dataset 'counts': samples 'S1' and 'S3' come "
+                                    r"from one biological sample \('E1' in column 'extract'\) "
+                                    r"but have different times \('1', '3'\); give the "
+                                    r"sequenced samples of one biological sample the same time "
+                                    r"in column 'day', or different biological sample names$",
+         meta="sample\tday\textract\nS1\t1\tE1\nS2\t2\tE2\nS3\t3\tE1\n",
+         kwargs={"time_by": "day", "replicate_by": "extract"}),
     Case("option-needs-metadata", r"^option --time-by: needs a metadata table; give "
                                   r"--metadata FILE$", kwargs={"time_by": "day"}),
     Case("depth-zero", r"^option --depth: depth 0 is not a positive number; give the number "

@@ -8,7 +8,10 @@ Recipe (Davison & Hinkley 1997, "Bootstrap Methods and their Application", ch. 4
    conditioned on its observed first sample
    (:func:`driftscreen.neutral.simulate.simulate_conditioned`), so a community still
    relaxing from a disturbance is compared with neutral communities relaxing from the
-   same start, and reads carry the technical noise estimated from the data.
+   same start, and reads carry the technical noise estimated from the data (from its
+   technical replicates where it has them: then every replicate dataset carries simulated
+   technical replicates too, and its noise is re-estimated from them,
+   :func:`fit_null`).
    The moment estimates of theta and rate are biased in short or strongly autocorrelated
    series, and the null distributions of several statistics depend on them; so a pilot
    of neutral replicates first measures the estimators' median bias on the log scale and
@@ -36,7 +39,7 @@ import pandas as pd
 from joblib import Parallel, delayed
 
 from driftscreen import seeds
-from driftscreen.dataset import Dataset, Design
+from driftscreen.dataset import Dataset, Design, TechnicalReplicates
 from driftscreen.limits import JOBS, check_analysable
 from driftscreen.neutral.fit import (
     CONDITIONED_MIN_SPAN,
@@ -52,13 +55,15 @@ from driftscreen.neutral.model import (
     NullOptions,
     StartOption,
 )
-from driftscreen.neutral.simulate import simulate, simulate_conditioned
+from driftscreen.neutral.simulate import simulate_with_replicates
+from driftscreen.neutral.technical import replicate_noise
 from driftscreen.results import (
     CalibrationSettings,
     DatasetSummary,
     NeutralityResult,
     ParameterEstimate,
     StatisticResult,
+    technical_source,
 )
 from driftscreen.statistics.base import Statistic, is_studentised
 from driftscreen.statistics.combination import harmonic_mean_pvalue
@@ -101,6 +106,7 @@ class ChunkTask:
     options: NullOptions = NullOptions()
     first_counts: np.ndarray | None = None
     taxon_scan: TaxonScan | None = None
+    technical: TechnicalReplicates | None = None
 
 
 @dataclass(frozen=True)
@@ -134,7 +140,8 @@ class CalibrationPlan:
     @property
     def raw_model(self) -> NeutralModel:
         """The moment estimates before bias correction, with the fit's flags."""
-        return fitted_model(self.fit, self.dataset.design, self.settings.null)
+        return fitted_model(self.fit, self.dataset.design, self.settings.null,
+                            replicate_pairs=replicate_pairs(self.dataset))
 
 
 def chunk_size_for(design: Design, n_taxa: int) -> int:
@@ -172,11 +179,43 @@ def median_log_bias(estimate: float, replicates: np.ndarray) -> float:
 
 
 def simulate_null(model: NeutralModel, design: Design, n_replicates: int,
-                  rng: np.random.Generator, first_counts: np.ndarray | None) -> np.ndarray:
-    """Neutral replicates: conditioned on ``first_counts`` when given, else unconditioned."""
-    if first_counts is None:
-        return simulate(model, design, n_replicates, rng)
-    return simulate_conditioned(model, design, n_replicates, first_counts, rng)
+                  rng: np.random.Generator, first_counts: np.ndarray | None,
+                  technical: TechnicalReplicates | None = None
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """Neutral replicates ``(R, T, K)`` and their technical replicates ``(R, E, K)``
+    (E = 0 without ``technical``): conditioned on ``first_counts`` when given."""
+    return simulate_with_replicates(model, design, n_replicates, technical, rng,
+                                    first_counts=first_counts)
+
+
+def noise_replicates(dataset: Dataset, options: NullOptions) -> TechnicalReplicates | None:
+    """The technical replicates the read precision comes from: the dataset's, when the
+    noise is estimated (a fixed or no noise leaves them unused)."""
+    return dataset.technical if options.noise == "estimate" else None
+
+
+def replicate_pairs(dataset: Dataset) -> int:
+    """Pairs of technical replicates of the dataset (0 without)."""
+    return 0 if dataset.technical is None else dataset.technical.n_pairs
+
+
+def noise_pairs(dataset: Dataset, options: NullOptions) -> int:
+    """Pairs of technical replicates the read precision comes from (0: none used)."""
+    technical = noise_replicates(dataset, options)
+    return 0 if technical is None else technical.n_pairs
+
+
+def fit_null(counts: np.ndarray, design: Design, options: NullOptions,
+             technical: TechnicalReplicates | None = None,
+             extra: np.ndarray | None = None) -> NullFit:
+    """:func:`fit_batch` of ``counts`` ``(R, T, K)``; with ``technical`` replicates and
+    their reads ``extra`` ``(R, E, K)``, the noise of every table comes from its pairs
+    (:func:`driftscreen.neutral.technical.replicate_noise`)."""
+    if technical is None or extra is None:
+        return fit_batch(counts, design, options)
+    noise = replicate_noise(counts[:, technical.of], extra, design.depths[technical.of],
+                            technical.depths)
+    return fit_batch(counts, design, options, known_noise=noise)
 
 
 def conditioning_sample(dataset: Dataset, options: NullOptions) -> np.ndarray | None:
@@ -200,25 +239,29 @@ def noise_bias_corrected(noise: float, replicates: np.ndarray) -> float:
 def bias_corrected_model(model: NeutralModel, design: Design,
                          stream: np.random.SeedSequence, clipped: bool = False,
                          options: NullOptions = NullOptions(),
-                         first_counts: np.ndarray | None = None) -> NeutralModel:
+                         first_counts: np.ndarray | None = None,
+                         technical: TechnicalReplicates | None = None) -> NeutralModel:
     """The model with theta, rate and noise corrected for the bias of their estimators.
 
     A pilot of :data:`PILOT_REPLICATES` replicates is simulated at ``model`` (conditioned
     on ``first_counts`` when given) and re-fitted; theta and the rate are divided by the
     factor by which the estimator overshot its median, an estimated noise is moved back by
     its median overshoot. A clipped fit (theta at the end of its range: no drift variance
-    detectable) is left as it is: there is no bias to measure at a boundary.
+    detectable) is left as it is: there is no bias to measure at a boundary. A noise from
+    ``technical`` replicates (simulated with the pilot and re-estimated) is not moved: its
+    estimator is unbiased (:mod:`driftscreen.neutral.technical`).
     """
     if clipped:
         return model
-    pilot = fit_batch(simulate_null(model, design, PILOT_REPLICATES, seeds.generator(stream),
-                                    first_counts), design, options)
+    counts, extra = simulate_null(model, design, PILOT_REPLICATES, seeds.generator(stream),
+                                  first_counts, technical)
+    pilot = fit_null(counts, design, options, technical, extra)
     theta = model.theta * np.exp(-median_log_bias(model.theta, pilot.theta))
     rate = None
     if model.rate is not None and pilot.rate is not None:
         rate = model.rate * np.exp(-median_log_bias(model.rate, pilot.rate))
     noise = model.noise
-    if options.fixed_noise is None:
+    if options.fixed_noise is None and technical is None:
         noise = noise_bias_corrected(model.noise, pilot.noise)
     note = (f"theta (and rate) bias-corrected by a pilot of {PILOT_REPLICATES} neutral "
             f"replicates: moment estimates theta {model.theta:.4g}"
@@ -238,21 +281,24 @@ def plan_calibration(dataset: Dataset, settings: CalibrationSettings,
     statistics_stream = seeds.substream(root, seeds.STATISTICS)
     options = settings.null
     first_counts = conditioning_sample(dataset, options)
-    observed_fit = fit_batch(dataset.counts[None], design, options)
+    technical = noise_replicates(dataset, options)
+    observed_fit = fit_null(dataset.counts[None], design, options, technical,
+                            None if technical is None else technical.counts[None])
     observed = compute_statistics(statistics, dataset.counts[None], design, observed_fit,
                                   statistics_stream)[0]
     observed_scales = compute_scales(statistics, dataset.counts[None], design, observed_fit,
                                      statistics_stream)[0]
-    model = bias_corrected_model(fitted_model(observed_fit, design, options), design,
-                                 seeds.substream(root, seeds.PILOT),
-                                 bool(observed_fit.clipped[0]), options, first_counts)
+    model = bias_corrected_model(fitted_model(observed_fit, design, options,
+                                              replicate_pairs=replicate_pairs(dataset)),
+                                 design, seeds.substream(root, seeds.PILOT),
+                                 bool(observed_fit.clipped[0]), options, first_counts, technical)
     scan = taxon_scan_for(observed_fit.p[0], float(observed_fit.theta[0]), design)
     size = chunk_size_for(design, dataset.n_taxa)
     starts = range(0, settings.replicates, size)
     tasks = tuple(
         ChunkTask(model, design, min(size, settings.replicates - start),
                   seeds.substream(root, seeds.SIMULATION, index), statistics_stream, statistics,
-                  options, first_counts, scan)
+                  options, first_counts, scan, technical)
         for index, start in enumerate(starts))
     return CalibrationPlan(dataset, settings, observed_fit, model, statistics, observed, tasks,
                            scan, scan.measure(dataset.counts[None], design, observed_fit)[0],
@@ -261,9 +307,10 @@ def plan_calibration(dataset: Dataset, settings: CalibrationSettings,
 
 def run_chunk(task: ChunkTask) -> ChunkOutput:
     """Simulate, re-fit and compute the statistics for one chunk of replicates."""
-    counts = simulate_null(task.model, task.design, task.n_replicates,
-                           seeds.generator(task.simulation_stream), task.first_counts)
-    refit = fit_batch(counts, task.design, task.options)
+    counts, extra = simulate_null(task.model, task.design, task.n_replicates,
+                                  seeds.generator(task.simulation_stream), task.first_counts,
+                                  task.technical)
+    refit = fit_null(counts, task.design, task.options, task.technical, extra)
     values = compute_statistics(task.statistics, counts, task.design, refit,
                                 task.statistics_stream)
     scales = compute_scales(task.statistics, counts, task.design, refit,
@@ -441,7 +488,7 @@ def parameter_interval(name: str, raw: float, simulated: float, replicates: np.n
 
 def precision_interval(raw: float, simulated: float, replicates: np.ndarray,
                        options: NullOptions, design: Design,
-                       rate: float | None) -> ParameterEstimate | None:
+                       rate: float | None, pairs: int = 0) -> ParameterEstimate | None:
     """Read precision C = 1/g - 1 with a 95% interval; None where it was not estimated.
 
     A fixed precision is reported as it is. An estimated one gets the basic bootstrap
@@ -449,25 +496,36 @@ def precision_interval(raw: float, simulated: float, replicates: np.ndarray,
     log scale), turned into C. When no noise was detected (g = 0) the estimate is inf and
     the lower bound comes from the 97.5% quantile of the replicates' g: reads at least
     that precise are consistent with the data. Nothing is reported where the series
-    cannot tell noise from drift at its fitted ``rate``.
+    cannot tell noise from drift at its fitted ``rate``, unless the noise came from
+    ``pairs`` pairs of technical replicates (time series and snapshots alike; the unit
+    column then says so). The replicates' estimate of g is a ratio, skewed to the right
+    like theta-hat, and gets the basic interval on the log scale: on 200 simulated
+    datasets each (10 pairs, C = 300, B = 99) it covered C in 0.95 of snapshots and 0.93
+    of time series, against 0.92 and 0.91 on the scale of g.
     """
     if options.fixed_noise is not None:
         if options.fixed_noise == 0:
             return None
         value = 1.0 / options.fixed_noise - 1.0
         return ParameterEstimate("precision", value, value, value, "fixed")
-    if not design.is_time_series or (simulated <= 0 and not noise_identifiable(design, rate)):
+    source = technical_source(pairs) if pairs else ""
+    if not pairs and (not design.is_time_series
+                      or (simulated <= 0 and not noise_identifiable(design, rate))):
         return None
     values = replicates[np.isfinite(replicates)]
     if values.size < 2:
-        return ParameterEstimate("precision", precision_of(simulated), np.nan, np.nan)
+        return ParameterEstimate("precision", precision_of(simulated), np.nan, np.nan, source)
     q_low, q_high = np.quantile(values, [0.025, 0.975])
     if simulated <= 0:
-        return ParameterEstimate("precision", np.inf, precision_of(q_high), np.inf)
+        return ParameterEstimate("precision", np.inf, precision_of(q_high), np.inf, source)
+    if pairs:
+        noise = parameter_interval("noise", raw, simulated, values)
+        return ParameterEstimate("precision", precision_of(simulated), precision_of(noise.high),
+                                 precision_of(noise.low), source)
     low_g = max(raw - (q_high - simulated), 0.0)
     high_g = max(raw - (q_low - simulated), 0.0)
     return ParameterEstimate("precision", precision_of(simulated), precision_of(high_g),
-                             precision_of(low_g))
+                             precision_of(low_g), source)
 
 
 def precision_of(noise: float) -> float:
@@ -580,7 +638,8 @@ def assemble(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> NeutralityRes
         parameters["rate"] = parameter_interval("rate", raw.rate, model.rate, rates, "per day")
     precision = precision_interval(raw.noise, model.noise,
                                    np.concatenate([out.noise for out in outputs]),
-                                   plan.settings.null, plan.dataset.design, raw.rate)
+                                   plan.settings.null, plan.dataset.design, raw.rate,
+                                   noise_pairs(plan.dataset, plan.settings.null))
     if precision is not None:
         parameters["precision"] = precision
     return NeutralityResult(
@@ -623,7 +682,8 @@ def neutrality_test(dataset: Dataset, *, replicates: int = 999, groupings: int =
     statistics:
         Statistics to run (default: all that the design allows).
     noise:
-        Technical noise of the reads: ``"estimate"`` (from the data; time series only),
+        Technical noise of the reads: ``"estimate"`` (from the dataset's technical
+        replicates where it has them, for any design; else from the data, time series only),
         ``"off"`` (multinomial reads) or a fixed Dirichlet-multinomial precision C.
     start:
         ``"first-sample"``: time-series replicates are conditioned on the observed first

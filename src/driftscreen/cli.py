@@ -154,6 +154,11 @@ def add_input_options(parser: argparse.ArgumentParser, optional_counts: bool = F
                             "without it every dataset is a snapshot design")
     group.add_argument("--depth-by", metavar="COL",
                        help="metadata column with each sample's sequencing depth (reads)")
+    group.add_argument("--replicate-by", metavar="COL",
+                       help="metadata column naming the biological sample each sequenced "
+                            "sample comes from: samples sharing a value are technical "
+                            "replicates (the same extract or library sequenced again); the "
+                            "deepest is analysed, the others give the read precision")
     group.add_argument("--depth", metavar="READS", type=read_depth,
                        help="one sequencing depth for every sample (relative-abundance tables)"
                             + ("; without COUNTS: median reads per sample of the design"
@@ -227,7 +232,8 @@ def add_null_options(parser: argparse.ArgumentParser) -> None:
     group = parser.add_argument_group("neutral null")
     group.add_argument("--read-noise", metavar="C", type=read_noise, default="estimate",
                        help="technical noise of the reads (PCR, extraction): 'estimate' "
-                            "(default; from the variance between samples close in time that "
+                            "(default; from technical replicates given by --replicate-by, "
+                            "else from the variance between samples close in time that "
                             "drift cannot explain, time series only), 'off' (multinomial "
                             "reads), or a fixed Dirichlet-multinomial precision C")
     group.add_argument("--start", choices=START_CHOICES, default="first-sample",

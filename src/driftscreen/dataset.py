@@ -71,6 +71,69 @@ class Design:
 
 
 @dataclass(frozen=True)
+class TechnicalReplicates:
+    """Sequenced samples beside the analysed ones: technical replicates of them.
+
+    A biological sample sequenced more than once (the same extract or library) keeps its
+    deepest sequenced sample in the dataset's counts; the others are kept here.
+
+    Attributes
+    ----------
+    of:
+        Index (row of the dataset's counts) of the kept sample each one replicates, ``(E,)``.
+    samples:
+        Their sample ids, ``(E,)``.
+    counts:
+        Their reads on the dataset's taxa, ``(E, K)``, int64; every row has a read.
+    """
+
+    of: np.ndarray
+    samples: tuple[str, ...]
+    counts: np.ndarray
+
+    def __post_init__(self) -> None:
+        of = np.asarray(self.of, dtype=np.int64)
+        counts = exact_reads(self.counts, "technical replicate counts")
+        if (of.ndim != 1 or counts.ndim != 2 or counts.shape[0] != of.size
+                or len(self.samples) != of.size or of.size == 0):
+            raise ValueError("technical replicates need one index, id and row of counts each")
+        if np.any(counts.sum(axis=1) < 1) or np.any(of < 0):
+            raise ValueError("every technical replicate needs a read and a kept sample")
+        object.__setattr__(self, "of", of)
+        object.__setattr__(self, "counts", counts)
+        object.__setattr__(self, "samples", tuple(self.samples))
+
+    @property
+    def depths(self) -> np.ndarray:
+        """Reads of every technical replicate, ``(E,)``."""
+        return self.counts.sum(axis=1)
+
+    @property
+    def n_pairs(self) -> int:
+        """Pairs of a kept sample with one of its technical replicates."""
+        return int(self.of.size)
+
+    @property
+    def n_replicated(self) -> int:
+        """Biological samples sequenced more than once."""
+        return int(np.unique(self.of).size)
+
+    def restricted(self, samples: np.ndarray, taxa: np.ndarray,
+                   counts: np.ndarray | None = None) -> TechnicalReplicates | None:
+        """The replicates of the kept samples ``samples`` on the taxa ``taxa`` (boolean
+        masks of the dataset's rows and columns), optionally with new ``counts`` ``(E, K)``;
+        replicates left without reads are dropped, ``None`` when none is left."""
+        counts = (self.counts if counts is None else np.asarray(counts))[:, taxa]
+        new_index = np.cumsum(samples) - 1
+        keep = samples[self.of] & (counts.sum(axis=1) > 0)
+        if not keep.any():
+            return None
+        return TechnicalReplicates(new_index[self.of[keep]],
+                                   tuple(s for s, k in zip(self.samples, keep) if k),
+                                   counts[keep])
+
+
+@dataclass(frozen=True)
 class Dataset:
     """One community dataset: read counts of taxa in samples, and its design.
 
@@ -97,6 +160,9 @@ class Dataset:
     from_relative:
         True if the counts were converted from relative abundances at a depth the user
         stated (the report then shows how the results move with that depth).
+    technical:
+        The other sequenced samples of biological samples sequenced more than once
+        (``replicate_by``), or ``None``.
     """
 
     name: str
@@ -109,6 +175,7 @@ class Dataset:
     dropped_taxa: int = 0
     source: tuple[str, ...] = field(default=())
     from_relative: bool = False
+    technical: TechnicalReplicates | None = None
 
     def __post_init__(self) -> None:
         counts = np.asarray(self.counts)
@@ -121,6 +188,10 @@ class Dataset:
         object.__setattr__(self, "counts", exact_reads(counts, "counts"))
         object.__setattr__(self, "taxa", tuple(self.taxa))
         object.__setattr__(self, "samples", tuple(self.samples))
+        technical = self.technical
+        if technical is not None and (technical.counts.shape[1] != counts.shape[1]
+                                      or np.any(technical.of >= counts.shape[0])):
+            raise ValueError("technical replicates must share the dataset's taxa and samples")
 
     @property
     def n_samples(self) -> int:

@@ -20,7 +20,7 @@ then tested again without it:
 2. **Ranking** of the :data:`CANDIDATES` most outlying samples. For each, the observed
    statistics are recomputed on the dataset without it, as
    :func:`driftscreen.calibrate.plan_calibration` computes them for the observed data
-   (:func:`driftscreen.neutral.fit.fit_batch` with the settings' null options, then
+   (:func:`driftscreen.calibrate.fit_null` with the settings' null options, then
    :func:`driftscreen.calibrate.compute_statistics` on the dataset's statistics stream),
    and compared with the *full-data* null distributions through normal-tail p-values
    (which, unlike bootstrap p-values, keep telling apart departures beyond every
@@ -46,10 +46,10 @@ from scipy.special import erfc
 
 from driftscreen import seeds
 from driftscreen.calibrate import (COMBINED, CalibrationPlan, CalibrationSettings, ChunkOutput,
-                                   assemble, compute_statistics, plan_calibration, run_tasks)
+                                   assemble, compute_statistics, fit_null, noise_replicates,
+                                   plan_calibration, run_tasks)
 from driftscreen.dataset import Dataset, Design
 from driftscreen.limits import NOT_ANALYSED, unanalysable_reason
-from driftscreen.neutral.fit import fit_batch
 from driftscreen.neutral.model import NeutralModel, sampling_variance_factor
 from driftscreen.results import NeutralityResult, SampleInfluence, StatisticResult, rejected
 from driftscreen.statistics.base import Statistic
@@ -89,7 +89,9 @@ def without_sample(dataset: Dataset, index: int) -> Dataset:
                    taxa=tuple(t for t, keep in zip(dataset.taxa, present) if keep),
                    samples=tuple(s for s, keep in zip(dataset.samples, kept) if keep),
                    design=Design(depths=dataset.design.depths[kept], times=times),
-                   dropped_taxa=dataset.dropped_taxa + int(np.count_nonzero(~present)))
+                   dropped_taxa=dataset.dropped_taxa + int(np.count_nonzero(~present)),
+                   technical=(None if dataset.technical is None
+                              else dataset.technical.restricted(kept, present)))
 
 
 # ----------------------------------------------------------------------------- stage 1
@@ -167,7 +169,9 @@ def observed_statistics(dataset: Dataset, settings: CalibrationSettings,
     chosen = statistics_for(dataset, settings, statistics)
     stream = seeds.substream(seeds.dataset_stream(settings.seed, dataset.name), seeds.STATISTICS)
     counts = dataset.counts[None]
-    fit = fit_batch(counts, dataset.design, settings.null)
+    technical = noise_replicates(dataset, settings.null)
+    fit = fit_null(counts, dataset.design, settings.null, technical,
+                   None if technical is None else technical.counts[None])
     values = compute_statistics(chosen, counts, dataset.design, fit, stream)[0]
     return {stat.name: float(value) for stat, value in zip(chosen, values)}
 

@@ -14,7 +14,7 @@ from dataclasses import replace
 import numpy as np
 
 from driftscreen.calibrate import CalibrationSettings, run_calibration
-from driftscreen.dataset import Dataset, Design
+from driftscreen.dataset import Dataset, Design, TechnicalReplicates
 from driftscreen.limits import check_analysable
 from driftscreen.results import NeutralityResult
 
@@ -53,7 +53,21 @@ def at_lower_depth(dataset: Dataset, factor: float = LOWER_DEPTH_FACTOR) -> Data
                    taxa=tuple(t for t, keep in zip(dataset.taxa, present) if keep),
                    design=Design(depths=lower, times=dataset.design.times),
                    notes=dataset.notes + (note,),
-                   dropped_taxa=dataset.dropped_taxa + int(np.count_nonzero(~present)))
+                   dropped_taxa=dataset.dropped_taxa + int(np.count_nonzero(~present)),
+                   technical=technical_at_lower_depth(dataset, factor, present))
+
+
+def technical_at_lower_depth(dataset: Dataset, factor: float, present: np.ndarray
+                             ) -> TechnicalReplicates | None:
+    """The dataset's technical replicates converted at ``factor`` x their depths, like its
+    samples, on the taxa ``present``."""
+    technical = dataset.technical
+    if technical is None:
+        return None
+    depths = technical.depths
+    lower = np.maximum(np.rint(depths * factor).astype(np.int64), MIN_READS)
+    counts = largest_remainder_rows(technical.counts / depths[:, None], lower)
+    return technical.restricted(np.ones(dataset.n_samples, dtype=bool), present, counts)
 
 
 def depth_sensitivity_line(dataset: Dataset, stated: NeutralityResult,

@@ -128,6 +128,16 @@ class ParameterEstimate:
     unit: str = ""
 
 
+def technical_source(pairs: int) -> str:
+    """The unit column of a read precision estimated from ``pairs`` technical replicate pairs."""
+    return f"from {pairs} technical replicate {'pair' if pairs == 1 else 'pairs'}"
+
+
+def from_technical_replicates(estimate: ParameterEstimate) -> bool:
+    """Whether a read precision was estimated from technical replicates."""
+    return estimate.unit.endswith(("technical replicate pair", "technical replicate pairs"))
+
+
 @dataclass(frozen=True)
 class DatasetSummary:
     """What the report needs to know about the dataset that was tested."""

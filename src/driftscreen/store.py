@@ -43,6 +43,9 @@ RECORDS_FOLDER = "datasets"
 STORE_FORMAT = 2
 #: Fingerprint entries that are shown but never compared (the same bytes may be moved).
 NOT_COMPARED = ("path",)
+#: Intake options that enter the fingerprint only when given: a screen without them has the
+#: fingerprint (and ``results.json``) of a run from before they existed.
+GIVEN_ONLY = ("replicate_by",)
 #: Fingerprint entry of a screen run without the most influential samples.
 INFLUENCE_OFF = "off"
 
@@ -88,7 +91,8 @@ def screen_fingerprint(*, inputs: Mapping[str, str | os.PathLike | None],
     """
     fingerprint = settings_fingerprint(
         inputs={role: path for role, path in inputs.items() if path is not None},
-        intake={k: v for k, v in intake.items() if k != "taxon_map"},
+        intake={k: v for k, v in intake.items()
+                if k != "taxon_map" and not (k in GIVEN_ONLY and v is None)},
         replicates=settings.replicates, groupings=settings.groupings, seed=settings.seed,
         statistics=configured_statistics(settings.groupings))
     if detectable:

@@ -209,3 +209,31 @@ def read_depths(metadata: Metadata, column: int, samples: Sequence[str]) -> np.n
                          place=metadata.table.place(int(rows[k]), column),
                          fix="give the number of reads of the sample")
     return depths
+
+
+@dataclass(frozen=True)
+class Biological:
+    """The biological sample of every sequenced sample (``replicate_by``).
+
+    Attributes
+    ----------
+    names:
+        One name per sample of the counts table, in its order.
+    column:
+        The metadata column's name.
+    """
+
+    names: tuple[str, ...]
+    column: str
+
+
+def read_biological(metadata: Metadata, column: int, samples: Sequence[str]) -> Biological:
+    """Biological sample names of ``samples`` from ``column``; an empty cell is an error."""
+    names = metadata.text(column, samples)
+    for sample, name in zip(samples, names):
+        if not name:
+            raise InputError("empty biological sample name", file=metadata.label,
+                             place=metadata.table.place(metadata.row_of[sample], column),
+                             fix="write the biological sample this sequenced sample comes "
+                                 "from (its own sample id if it was sequenced once)")
+    return Biological(tuple(names), metadata.table.header[column])

@@ -11,14 +11,15 @@ from typing import Any, Literal
 
 import numpy as np
 
-from driftscreen.dataset import Dataset, Design
+from driftscreen.dataset import Dataset, Design, TechnicalReplicates
 from driftscreen.errors import InputError
 from driftscreen.intake.abundance import (Converted, Depths, check_values, detect_abundance,
                                           to_counts)
 from driftscreen.intake.biom import is_biom, read_biom
 from driftscreen.intake.counts import CountTable, is_long, read_long, read_wide
-from driftscreen.intake.metadata import (Metadata, Times, check_join, dataset_names, read_depths,
-                                         read_metadata, read_times)
+from driftscreen.intake.metadata import (Biological, Metadata, Times, check_join, dataset_names,
+                                         read_biological, read_depths, read_metadata,
+                                         read_times)
 from driftscreen.intake.tables import (file_label, file_stem, plural, quoted_list,
                                        read_text_table)
 from driftscreen.intake.taxonomy import (Rank, aggregate, aggregation_notes, lineage_grouping,
@@ -43,6 +44,7 @@ class Columns:
     datasets: tuple[int, ...] = ()
     time: int | None = None
     depth: int | None = None
+    replicate: int | None = None
 
 
 @dataclass(frozen=True)
@@ -85,6 +87,7 @@ def read_datasets(
     lineage: str | None = None,
     rank: str | None = None,
     taxon_map: str | os.PathLike | None = None,
+    replicate_by: str | None = None,
     min_samples: int = MIN_SAMPLES_SNAPSHOT,
     min_taxa: int = MIN_TAXA,
 ) -> list[Dataset]:
@@ -119,6 +122,12 @@ def read_datasets(
         Aggregate taxa to ``rank`` using a lineage column (of a BIOM file: an observation
         metadata field, ``taxonomy`` if not named), or to the groups of a two-column
         taxon map file (whose groups are lineages when ``rank`` is given).
+    replicate_by:
+        Metadata column naming the biological sample each sequenced sample comes from:
+        sequenced samples of one dataset sharing a value are technical replicates (the
+        same extract or library sequenced again). The deepest of each biological sample
+        (the first in table order among equals) is analysed; the others are kept in
+        :attr:`Dataset.technical` and give the read precision.
     min_samples, min_taxa:
         Smallest acceptable dataset (taxa counted after dropping all-zero taxa).
 
@@ -141,11 +150,11 @@ def read_datasets(
         lineage = inside.lineage
     own_metadata = None if inside is None else inside.samples
     check_options(metadata if own_metadata is None else own_metadata, sample_id, dataset_by,
-                  time_by, depth_by, depth, lineage, rank, taxon_map)
+                  time_by, depth_by, depth, lineage, rank, taxon_map, replicate_by)
     parsed_rank = None if rank is None else parse_rank(rank)
     meta = None if metadata is None else read_metadata(file_label(metadata), sample_id)
     meta = meta if own_metadata is None else own_metadata
-    columns = metadata_columns(meta, dataset_by, time_by, depth_by)
+    columns = metadata_columns(meta, dataset_by, time_by, depth_by, replicate_by)
     raw = (read_count_table(counts, layout, orientation, lineage, meta) if inside is None
            else inside.counts)
     table = prepare_table(raw, meta, columns.depth, depth, abundance, remainder, lineage,
@@ -157,10 +166,13 @@ def read_datasets(
     times = None
     if meta is not None and columns.time is not None:
         times = read_times(meta, columns.time, table.samples)
+    biological = None
+    if meta is not None and columns.replicate is not None:
+        biological = read_biological(meta, columns.replicate, table.samples)
     source = tuple(file_label(p) for p in (counts, metadata, taxon_map) if p is not None)
     limits = (min_samples, min_taxa)
     return [build_dataset(name, np.flatnonzero(np.array(names) == name), table, times,
-                          source, limits, where)
+                          source, limits, where, biological)
             for name in sorted(set(names))]
 
 
@@ -177,11 +189,13 @@ def check_arguments(layout: str, orientation: str, abundance: str, remainder: st
 
 def check_options(metadata: object, sample_id: str | None, dataset_by: Sequence[str],
                   time_by: str | None, depth_by: str | None, depth: float | None,
-                  lineage: str | None, rank: str | None, taxon_map: object) -> None:
+                  lineage: str | None, rank: str | None, taxon_map: object,
+                  replicate_by: str | None = None) -> None:
     """Option combinations that cannot work, reported before any file is read."""
     if metadata is None:
         for name, value in (("sample_id", sample_id), ("dataset_by", dataset_by or None),
-                            ("time_by", time_by), ("depth_by", depth_by)):
+                            ("time_by", time_by), ("depth_by", depth_by),
+                            ("replicate_by", replicate_by)):
             if value is not None:
                 raise InputError("needs a metadata table", parameter=name,
                                  fix="give --metadata FILE")
@@ -215,14 +229,16 @@ def check_depth_number(depth: object) -> None:
 
 
 def metadata_columns(meta: Metadata | None, dataset_by: Sequence[str], time_by: str | None,
-                     depth_by: str | None) -> Columns:
+                     depth_by: str | None, replicate_by: str | None = None) -> Columns:
     """Column indices of the ``*_by`` options; a missing column is an input error."""
     if meta is None:
         return Columns()
     return Columns(
         datasets=tuple(meta.column(name, "--dataset-by") for name in dataset_by),
         time=None if time_by is None else meta.column(time_by, "--time-by"),
-        depth=None if depth_by is None else meta.column(depth_by, "--depth-by"))
+        depth=None if depth_by is None else meta.column(depth_by, "--depth-by"),
+        replicate=None if replicate_by is None else meta.column(replicate_by,
+                                                                "--replicate-by"))
 
 
 def read_count_table(counts: str | os.PathLike, layout: str, orientation: str,
@@ -289,10 +305,15 @@ def add_remainder(counts: np.ndarray, taxa: Sequence[str], other: np.ndarray | N
 
 
 def build_dataset(name: str, members: np.ndarray, table: Table, times: Times | None,
-                  source: tuple[str, ...], limits: tuple[int, int], where: str) -> Dataset:
-    """One dataset: its samples (time-ordered), taxa with reads, design and notes."""
+                  source: tuple[str, ...], limits: tuple[int, int], where: str,
+                  biological: Biological | None = None) -> Dataset:
+    """One dataset: its samples (time-ordered), taxa with reads, design and notes; with
+    ``biological`` samples, one sequenced sample of each and its technical replicates."""
     min_samples, min_taxa = limits
     days = None
+    extras = kept_of = np.zeros(0, dtype=np.int64)
+    if biological is not None:
+        members, extras, kept_of = split_replicates(name, members, table, biological, times)
     if times is not None:
         days_all = times.days(members)
         order = np.argsort(days_all, kind="stable")
@@ -320,10 +341,91 @@ def build_dataset(name: str, members: np.ndarray, table: Table, times: Times | N
     taxa = tuple(t for t, keep in zip(table.taxa, present) if keep)
     samples = tuple(table.samples[k] for k in members)
     depths = kept.sum(axis=1)
+    technical = None
+    if biological is not None and extras.size:
+        technical, replicate_notes = technical_replicates(members, extras, kept_of, table,
+                                                          present, biological)
+        notes += replicate_notes
+    elif biological is not None:
+        notes.append(f"no biological sample was sequenced more than once (column "
+                     f"'{biological.column}'): no technical replicates")
     return Dataset(name=name, counts=kept, taxa=taxa, samples=samples,
                    design=Design(depths=depths, times=days), notes=tuple(notes),
                    warnings=table.warnings + single_read_warning(samples, depths),
-                   dropped_taxa=dropped, source=source, from_relative=table.converted.relative)
+                   dropped_taxa=dropped, source=source, from_relative=table.converted.relative,
+                   technical=technical)
+
+
+def split_replicates(name: str, members: np.ndarray, table: Table, biological: Biological,
+                     times: Times | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The kept sequenced sample of every biological sample (the deepest; the first in
+    table order among equals), the others, and the kept sample each of them replicates
+    (table rows). Replicates of one biological sample of a time series share its time."""
+    depth = dict(zip(members.tolist(), table.counts[members].sum(axis=1).tolist()))
+    groups: dict[str, list[int]] = {}
+    for row in members.tolist():
+        groups.setdefault(biological.names[row], []).append(row)
+    kept, extras, kept_of = [], [], []
+    for rows in groups.values():
+        best = max(rows, key=lambda row: (depth[row], -row))
+        others = [row for row in rows if row != best]
+        if times is not None:
+            check_same_time(name, best, others, table, times, biological)
+        kept.append(best)
+        extras += others
+        kept_of += [best] * len(others)
+    return (np.array(sorted(kept), dtype=np.int64), np.array(extras, dtype=np.int64),
+            np.array(kept_of, dtype=np.int64))
+
+
+def check_same_time(name: str, kept: int, others: Sequence[int], table: Table,
+                    times: Times, biological: Biological) -> None:
+    """Technical replicates of a time series come from one community at one time."""
+    for other in others:
+        if times.values[other] != times.values[kept]:
+            first, second = sorted((kept, other))
+            raise InputError(f"samples '{table.samples[first]}' and '{table.samples[second]}' "
+                             f"come from one biological sample ('{biological.names[kept]}' in "
+                             f"column '{biological.column}') but have different times "
+                             f"('{times.text[first]}', '{times.text[second]}')",
+                             file=times.label, place=f"dataset '{name}'",
+                             fix="give the sequenced samples of one biological sample the same "
+                                 f"time in column '{times.column}', or different biological "
+                                 "sample names")
+
+
+def technical_replicates(members: np.ndarray, extras: np.ndarray, kept_of: np.ndarray,
+                         table: Table, present: np.ndarray, biological: Biological
+                         ) -> tuple[TechnicalReplicates | None, list[str]]:
+    """The record of the technical replicates on the dataset's taxa, and its notes.
+
+    ``members`` are the dataset's rows in its order; a replicate without reads on the
+    dataset's taxa is left out."""
+    counts = table.counts[extras][:, present]
+    usable = counts.sum(axis=1) > 0
+    position = {row: k for k, row in enumerate(members.tolist())}
+    notes = []
+    if not usable.all():
+        left_out = [table.samples[row] for row in extras[~usable]]
+        count = plural(len(left_out), "technical replicate", "technical replicates")
+        notes.append(f"left out {count} without reads on the dataset's taxa: "
+                     + quoted_list(left_out, 3))
+    if not usable.any():
+        return None, notes
+    technical = TechnicalReplicates([position[row] for row in kept_of[usable].tolist()],
+                                    tuple(table.samples[row] for row in extras[usable]),
+                                    counts[usable])
+    chosen = [f"'{table.samples[row]}' for '{biological.names[row]}'"
+              for row in dict.fromkeys(kept_of[usable].tolist())]
+    replicated = plural(technical.n_replicated, "biological sample was",
+                        "biological samples were")
+    others = plural(technical.n_pairs, "sequenced sample is a technical replicate",
+                    "sequenced samples are technical replicates")
+    notes.append(f"{replicated} sequenced more than once (column '{biological.column}'): "
+                 f"the deepest sequenced sample of each is analysed "
+                 f"({', '.join(chosen[:3])}{', ...' if len(chosen) > 3 else ''}); {others} "
+                 "beside it")
+    return technical, notes
 
 
 def single_read_warning(samples: Sequence[str], depths: np.ndarray) -> tuple[str, ...]:

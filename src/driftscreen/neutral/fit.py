@@ -229,7 +229,8 @@ def variogram(counts: np.ndarray, design: Design) -> tuple[np.ndarray, np.ndarra
 
 
 def fit_batch(counts: np.ndarray, design: Design,
-              options: NullOptions = NullOptions()) -> NullFit:
+              options: NullOptions = NullOptions(),
+              known_noise: np.ndarray | None = None) -> NullFit:
     """Fit (p, theta, rate, noise) to each table of a batch sharing one design; vectorised.
 
     Parameters
@@ -242,6 +243,10 @@ def fit_batch(counts: np.ndarray, design: Design,
     options:
         Technical noise estimated, off or fixed; p relaxation-corrected (conditioned on
         the first sample) or the pooled read fraction (see :class:`NullOptions`).
+    known_noise:
+        The technical noise g of every table ``(R,)`` when it is known from elsewhere
+        (technical replicates, :mod:`driftscreen.neutral.technical`): used as a fixed
+        noise, in place of the options' one.
 
     Returns
     -------
@@ -264,6 +269,9 @@ def fit_batch(counts: np.ndarray, design: Design,
     p = pooled_fractions(counts, design)
     n_rep = counts.shape[0]
     v, noise = np.empty(n_rep), np.full(n_rep, options.fixed_noise or 0.0)
+    fixed = options.fixed_noise is not None
+    if known_noise is not None:
+        noise, fixed = np.asarray(known_noise, dtype=np.float64).copy(), True
     rate = np.empty(n_rep) if series is not None else None
     step = _sub_batch_size(counts.shape)
     for start in range(0, n_rep, step):
@@ -272,7 +280,7 @@ def fit_batch(counts: np.ndarray, design: Design,
             v[part] = _snapshot_v(counts[part], p[part], design, noise[part])
         else:
             v[part], rate[part], noise[part] = _series_fit(counts[part], p[part], design,
-                                                           series, options.fixed_noise)
+                                                           series, noise[part] if fixed else None)
     clipped = ~((v >= V_MIN) & (v <= V_MAX))
     v = np.clip(np.nan_to_num(v, nan=V_MIN), V_MIN, V_MAX)
     if series is not None and options.conditioned:
@@ -314,17 +322,21 @@ def fit(counts: np.ndarray, design: Design, options: NullOptions = NullOptions()
 
 
 def fitted_model(result: NullFit, design: Design, options: NullOptions = NullOptions(),
-                 index: int = 0) -> NeutralModel:
+                 index: int = 0, replicate_pairs: int = 0) -> NeutralModel:
     """Table ``index`` of a batch fit as a :class:`NeutralModel` with plain-text flags.
 
     The one path from a fit to a model. Flags: theta clipped; rate at a bound of its
     search range; rate weakly identified (rate * span < 5, design note section 5); series
     too short for a rate; samples with a single read left out of the variogram; technical
-    noise not separable from drift (snapshots, or successive samples nearly independent).
+    noise not separable from drift (snapshots, or successive samples nearly independent);
+    with ``replicate_pairs`` pairs of technical replicates, where the noise came from.
     """
     rate = None if result.rate is None else float(result.rate[index])
     flags = _fit_flags(design, rate, bool(result.clipped[index]), options.conditioned)
-    flags += _noise_flags(design, rate, float(result.noise[index]), options)
+    if replicate_pairs:
+        flags += (_replicate_flag(replicate_pairs, options),)
+    else:
+        flags += _noise_flags(design, rate, float(result.noise[index]), options)
     return NeutralModel(result.p[index], float(result.theta[index]), rate,
                         float(result.noise[index]), flags)
 
@@ -375,7 +387,7 @@ def _snapshot_v(counts: np.ndarray, p: np.ndarray, design: Design,
 
 
 def _series_fit(counts: np.ndarray, p: np.ndarray, design: Design, series: _SeriesDesign,
-                fixed_noise: float | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                fixed_noise: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """v-hat, rate-hat and noise-hat from the pooled spread and increments at lags 1 and 2.
 
     Pooled over taxa, the spread Q about the fitted mean, H = sum_i p_i (1 - p_i) and the
@@ -402,7 +414,7 @@ def _series_fit(counts: np.ndarray, p: np.ndarray, design: Design, series: _Seri
     path of every grid rate (:func:`_observed_ratios`).
     """
     ratio_q, ratios = _observed_ratios(counts, p, design, series)
-    noise = np.full(counts.shape[0], fixed_noise or 0.0)
+    noise = np.zeros(counts.shape[0]) if fixed_noise is None else fixed_noise.copy()
     if not series.identifiable:
         last = series.log_grid.size - 1
         crossing = _Crossing(np.full(noise.size, last), np.zeros(noise.size))
@@ -759,6 +771,16 @@ def _noise_flags(design: Design, rate: float | None, noise: float,
     return (f"technical noise not identified (successive samples correlate at "
             f"{correlation:.2f} under the fit, below {NOISE_MIN_CORRELATION:g}, or fewer than "
             f"{NOISE_MIN_SAMPLES} samples): reads are treated as multinomial",)
+
+
+def _replicate_flag(pairs: int, options: NullOptions) -> str:
+    """Where the read precision came from in a dataset with technical replicates."""
+    if options.noise == "estimate":
+        return (f"read precision from {pairs} technical replicate "
+                f"{'pair' if pairs == 1 else 'pairs'} (sequenced samples of one biological "
+                "sample), not from the variance between samples")
+    return (f"technical replicates ({pairs} {'pair' if pairs == 1 else 'pairs'}) not used: "
+            "the read noise is fixed by the options")
 
 
 def _fit_flags(design: Design, rate: float | None, clipped: bool,

@@ -40,7 +40,9 @@ class NullOptions:
         Technical noise of the reads: ``"estimate"`` (time series: from the nugget of the
         sampling-corrected variogram, i.e. the part of the variance between successive
         samples that drift cannot explain; snapshots cannot separate it from drift and
-        get multinomial reads), ``"off"`` (multinomial reads), or a fixed
+        get multinomial reads; a dataset with technical replicates, of either design, gets
+        it from them, :func:`driftscreen.calibrate.fit_null`), ``"off"`` (multinomial
+        reads), or a fixed
         Dirichlet-multinomial precision C > 0.
     start:
         ``"first-sample"``: replicates of a time series are conditioned on its first

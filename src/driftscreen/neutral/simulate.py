@@ -16,6 +16,9 @@ C = 1/g - 1 (Mosimann 1962, Biometrika 49:65), drawn independently for every sam
 :func:`simulate_conditioned` conditions a time series on its observed first sample:
 the community at the first time is drawn from its posterior given those reads and the
 later samples follow from it; the first sample itself is the observed one.
+:func:`simulate_with_replicates` also reads technical replicates: further reads of the
+latent community of a sample, drawn right after that sample's own reads from the same
+block stream (without technical replicates, the draws are those of :func:`simulate`).
 
 Reproducibility: replicates are simulated in blocks of :func:`replicates_per_block`
 replicates (a fixed function of the number of taxa and samples). Block ``b`` draws from
@@ -32,7 +35,7 @@ from typing import Literal
 
 import numpy as np
 
-from driftscreen.dataset import Design
+from driftscreen.dataset import Design, TechnicalReplicates
 from driftscreen.neutral.dirichlet import dirichlet_rows, dirichlet_rows_unchecked
 from driftscreen.neutral.lines_of_descent import LinesOfDescentSampler
 from driftscreen.neutral.model import NeutralModel
@@ -164,12 +167,15 @@ def sequence(depth: int | np.ndarray, x: np.ndarray, precision: float,
 
 def _simulate_block(model: NeutralModel, design: Design, sampler: LinesOfDescentSampler | None,
                     start: np.ndarray | None, rng: np.random.Generator,
-                    out: np.ndarray) -> np.ndarray:
-    """Counts of one block of replicates written into ``out`` (shape ``(n_rows, T, K)``).
+                    out: np.ndarray, technical: TechnicalReplicates | None = None
+                    ) -> np.ndarray:
+    """Counts of one block of replicates written into ``out`` (shape ``(n_rows, T, K)``,
+    or ``(n_rows, T + E, K)`` with the E ``technical`` replicates after the samples).
 
     Taxa are processed in decreasing order of p: numpy's multinomial draws one
     conditional binomial per category and stops once all trials are placed, so putting
     the rare taxa last skips many of them (measured: ~15% less time per multinomial).
+    A technical replicate is read from the same community as its sample, right after it.
     """
     n_rows = out.shape[0]
     order = np.argsort(-model.p, kind="stable")
@@ -177,14 +183,16 @@ def _simulate_block(model: NeutralModel, design: Design, sampler: LinesOfDescent
     theta_p = model.theta * model.p[order]
     if sampler is None:
         alpha = np.broadcast_to(theta_p, (n_rows, model.n_taxa))
-        for t, depth in enumerate(design.depths):
-            out[:, t] = sequence(depth, dirichlet_rows(alpha, rng), model.precision,
-                                 rng)[:, original]
-        return out
-    start = None if start is None else start[:, order]
-    path = _latent_path(theta_p, start, n_rows, sampler, design.n_samples, rng)
+        path: Iterator[np.ndarray] = (dirichlet_rows(alpha, rng) for _ in design.depths)
+    else:
+        start = None if start is None else start[:, order]
+        path = _latent_path(theta_p, start, n_rows, sampler, design.n_samples, rng)
     for t, x in enumerate(path):
         out[:, t] = sequence(design.depths[t], x, model.precision, rng)[:, original]
+        if technical is not None:
+            for e in np.flatnonzero(technical.of == t):
+                out[:, design.n_samples + e] = sequence(technical.depths[e], x,
+                                                        model.precision, rng)[:, original]
     return out
 
 
@@ -216,9 +224,12 @@ class _Blocks:
     """The blocks of one simulation request: block ``b`` from its own random stream."""
 
     def __init__(self, model: NeutralModel, design: Design, n_replicates: int,
-                 rng: RandomSource, start: Start) -> None:
+                 rng: RandomSource, start: Start,
+                 technical: TechnicalReplicates | None = None) -> None:
         _check_inputs(model, design, n_replicates)
         self.model, self.design, self.n_replicates = model, design, int(n_replicates)
+        self.technical = technical
+        self.n_rows_out = design.n_samples + (0 if technical is None else technical.n_pairs)
         self.starts = _start_rows(start, model, design, n_replicates)
         self.sampler = None
         if design.is_time_series:
@@ -237,14 +248,14 @@ class _Blocks:
         """Counts of block ``index``, into ``out`` if given."""
         first, last = self.rows(index)
         if out is None:
-            out = np.empty((last - first, self.design.n_samples, self.model.n_taxa),
+            out = np.empty((last - first, self.n_rows_out, self.model.n_taxa),
                            dtype=np.int64)
         start = None
         if self.starts is not None:
             rows = self.starts[first:last] if self.starts.shape[0] > 1 else self.starts
             start = np.broadcast_to(rows, (last - first, self.model.n_taxa))
         return _simulate_block(self.model, self.design, self.sampler, start,
-                               np.random.default_rng(self.streams[index]), out)
+                               np.random.default_rng(self.streams[index]), out, self.technical)
 
 
 def iter_simulate(model: NeutralModel, design: Design, n_replicates: int,
@@ -285,7 +296,7 @@ def _chunks(blocks: _Blocks, size: int) -> Iterator[np.ndarray]:
     """Chunks of ``size`` replicates; whole blocks are simulated in place, a block that
     straddles two chunks is simulated once and kept until both have their part."""
     straddling: tuple[int, np.ndarray] | None = None
-    tail_shape = (blocks.design.n_samples, blocks.model.n_taxa)
+    tail_shape = (blocks.n_rows_out, blocks.model.n_taxa)
     for first in range(0, blocks.n_replicates, size):
         last = min(first + size, blocks.n_replicates)
         chunk = np.empty((last - first, *tail_shape), dtype=np.int64)
@@ -388,16 +399,39 @@ def simulate_conditioned(model: NeutralModel, design: Design, n_replicates: int,
     np.ndarray
         Shape ``(R, T, K)``, int64; ``counts[:, 0] == first_counts``.
     """
-    if not design.is_time_series:
-        raise ValueError("conditioning on the first sample needs a time series")
-    first_counts = np.asarray(first_counts)
-    if first_counts.shape != (model.n_taxa,) or first_counts.sum() != design.depths[0]:
-        raise ValueError("first_counts must have shape (K,) and sum to the first depth")
-    generator = np.random.default_rng(rng)
-    start = first_sample_posterior(model, first_counts, n_replicates, generator)
-    counts = simulate(model, design, n_replicates, generator, start=start)
-    counts[:, 0] = first_counts
+    counts, _ = simulate_with_replicates(model, design, n_replicates, None, rng,
+                                         first_counts=first_counts)
     return counts
+
+
+def simulate_with_replicates(model: NeutralModel, design: Design, n_replicates: int,
+                             technical: TechnicalReplicates | None, rng: RandomSource = None,
+                             *, first_counts: np.ndarray | None = None
+                             ) -> tuple[np.ndarray, np.ndarray]:
+    """Neutral replicates and their technical replicates: ``(R, T, K)`` and ``(R, E, K)``.
+
+    As :func:`simulate` (or, given ``first_counts``, :func:`simulate_conditioned`, with
+    the same draws), and every technical replicate e of ``technical`` is read at its depth
+    from the latent community of the sample ``technical.of[e]`` it replicates, with the
+    model's read precision. Without ``technical`` (None) the second array is empty.
+    """
+    generator = np.random.default_rng(rng)
+    start: Start = "stationary"
+    if first_counts is not None:
+        if not design.is_time_series:
+            raise ValueError("conditioning on the first sample needs a time series")
+        first_counts = np.asarray(first_counts)
+        if first_counts.shape != (model.n_taxa,) or first_counts.sum() != design.depths[0]:
+            raise ValueError("first_counts must have shape (K,) and sum to the first depth")
+        start = first_sample_posterior(model, first_counts, n_replicates, generator)
+    blocks = _Blocks(model, design, n_replicates, generator, start, technical)
+    rows = next(_chunks(blocks, blocks.n_replicates))
+    counts, extra = rows[:, :design.n_samples], rows[:, design.n_samples:]
+    if first_counts is not None:
+        counts[:, 0] = first_counts
+    if technical is None:
+        return rows, extra
+    return np.ascontiguousarray(counts), np.ascontiguousarray(extra)
 
 
 def simulate_abundances(model: NeutralModel, times: np.ndarray, n_replicates: int,

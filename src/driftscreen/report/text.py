@@ -21,6 +21,7 @@ from driftscreen.report.format import (ALPHA, WIDTH, bullet_list, heading, key_v
                                        percent, pvalue_text, qvalue_text, sentence, shorten,
                                        table, taxon_table, verdict_word, wrap, wrapped_pairs)
 from driftscreen.report.taxa import TAXA_LEGEND, TAXA_METHODS, screen_taxa_lines, taxa_lines
+from driftscreen.results import from_technical_replicates
 from driftscreen.statistics.registry import COMBINED, reported_only, statistic_class
 from driftscreen.version import __version__
 
@@ -369,6 +370,13 @@ def summary_table(run: ScreenResult) -> list[str]:
     return table(headers, rows, "rlrrrrrrl")
 
 
+def any_technical_replicates(run: ScreenResult) -> bool:
+    """Whether the read precision of any analysed dataset came from technical replicates."""
+    return any(o.result is not None and "precision" in o.result.parameters
+               and from_technical_replicates(o.result.parameters["precision"])
+               for o in run.outcomes)
+
+
 def any_influence(run: ScreenResult) -> bool:
     return any(o.result is not None and o.result.influence is not None for o in run.outcomes)
 
@@ -414,6 +422,16 @@ def statistics_used(run: ScreenResult) -> list[str]:
         if outcome.result is not None:
             names += [n for n in outcome.result.statistics if n != COMBINED and n not in names]
     return names
+
+
+TECHNICAL_METHODS = (
+    "Where biological samples had been sequenced more than once, the deepest sequenced "
+    "sample of each was analysed and the precision of that dataset (time series and "
+    "snapshots alike) was estimated from its pairs of technical replicates, whose squared "
+    "differences exceed those of multinomial sampling by the technical noise alone "
+    "(Dirichlet-multinomial moments, Mosimann 1962); every neutral replicate carried "
+    "technical replicates read from the same simulated communities at the same depths, "
+    "re-estimated in the same way. ")
 
 
 def null_reads_text(options: NullOptions) -> str:
@@ -477,7 +495,8 @@ def methods_paragraph(run: ScreenResult, version: str) -> list[str]:
         "Biodiversity and Biogeography; Etienne 2005, Ecol. Lett. 8:253), in which the "
         "relative abundances of taxa follow a Wright-Fisher diffusion with immigration from "
         "a metacommunity and every sample is a draw of its sequencing depth, "
-        + null_reads_text(settings.null) +
+        + null_reads_text(settings.null)
+        + (TECHNICAL_METHODS if any_technical_replicates(run) else "") +
         "The metacommunity composition, the immigration parameter theta and, for time "
         "series, the relaxation rate were estimated by sampling-corrected moment methods, "
         "and theta and the rate were corrected for the median bias of these estimators "

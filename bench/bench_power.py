@@ -8,9 +8,8 @@ from __future__ import annotations
 import time
 
 from driftscreen.calibrate import CalibrationSettings
-from driftscreen.synthetic import neutral_collection
 from driftscreen.power import PowerDesign, detectable_line, power_curve
-from driftscreen.synthetic import DesignSpec
+from driftscreen.synthetic import DesignSpec, neutral_collection
 
 DESIGN = dict(n_taxa=40, n_samples=100, interval=1.0, depth=10_000)
 STRENGTHS = (1e-3, 1e-2)

@@ -174,10 +174,10 @@ def test_named_lineage_field_and_missing_taxonomy(tmp_path):
     bare = biom.Table(COUNTS.T, list(TAXA), list(SAMPLES))
     bare_path = write_json(bare, tmp_path / "bare.biom")
     with pytest.raises(InputError, match=r"^.*bare\.biom: no taxonomy in the observation "
-                                         r"metadata.*; give --taxon-map FILE"):
+                                         r"metadata.*; give taxon_map FILE"):
         read_datasets(bare_path, rank="genus")
-    with pytest.raises(InputError, match=r"no observation metadata field 'lineage' \(option "
-                                         r"--lineage\); use one of the fields 'taxonomy'"):
+    with pytest.raises(InputError, match=r"no observation metadata field 'lineage' \(parameter "
+                                         r"lineage\); use one of the fields 'taxonomy'"):
         read_datasets(path, lineage="lineage", rank="genus")
 
 

@@ -360,7 +360,8 @@ def test_bad_input_gives_one_line_error(tmp_path, case):
     # a file (or a parameter, which the command line words as its option) and a fix
     assert (error.file or error.parameter) and error.fix, message
     assert str(error).startswith(error.file or f"parameter {error.parameter}: ")
-    assert message.endswith(error.fix)
+    assert str(error).endswith(error.fix)
+    assert "--" not in str(error)  # the library names parameters, not options
     assert "Traceback" not in message and "pandas" not in message.lower()
     assert checksums(tmp_path) == before  # input files are never modified
 

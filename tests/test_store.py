@@ -3,14 +3,19 @@
 from __future__ import annotations
 
 import json
+import re
 import shutil
 
 import pytest
 
 from driftscreen import __version__
+from driftscreen.cli import build_parser, option_names
 from driftscreen.errors import InputError
 from driftscreen.store import (STORE_FOLDER, ResultStore, differences, fingerprint_key,
                                record_file_name, settings_fingerprint)
+
+#: The command line's words for the library's parameters.
+OPTIONS = option_names(build_parser())
 
 
 @pytest.fixture()
@@ -55,7 +60,7 @@ def test_other_settings_are_refused_with_what_differs(tmp_path, inputs):
     ResultStore.open(out, fingerprint(inputs))
     with pytest.raises(InputError) as caught:
         ResultStore.open(out, fingerprint(inputs, seed=2, replicates=99))
-    message = caught.value.one_line()
+    message = caught.value.one_line(OPTIONS)
     assert "\n" not in message
     assert "--seed: 1 there, 2 now" in message
     assert "--replicates: 49 there, 99 now" in message
@@ -106,7 +111,7 @@ def test_broken_records_are_refused_in_one_line(tmp_path, inputs, content):
     (store.records_folder / record_file_name("broken")).write_bytes(content)
     with pytest.raises(InputError) as caught:
         store.finished()
-    message = caught.value.one_line()
+    message = caught.value.one_line(OPTIONS)
     assert "\n" not in message and "is not a resume store of this driftscreen version" in message
     assert message.endswith(f"give a new --out folder, or remove {store.folder} to start afresh")
 
@@ -135,9 +140,11 @@ def test_unreadable_or_misshapen_settings_are_refused_and_kept(tmp_path, inputs,
     out = tmp_path / "out"
     store = ResultStore.open(out, fingerprint(inputs))
     store.settings_path.write_bytes(content)
-    with pytest.raises(InputError, match=r"settings\.json is unreadable or of another layout\); "
-                                         r"give a new --out folder, or remove .*\.driftscreen"):
+    with pytest.raises(InputError) as caught:
         ResultStore.open(out, fingerprint(inputs, seed=5))
+    assert re.search(r"settings\.json is unreadable or of another layout\); give a new --out "
+                     r"folder, or remove .*\.driftscreen", caught.value.one_line(OPTIONS))
+    assert "give a new out folder" in str(caught.value)  # the library names the parameter
     assert store.settings_path.read_bytes() == content
 
 

@@ -20,7 +20,7 @@ import operator
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-from driftscreen.errors import InputError
+from driftscreen.errors import InputError, mention
 
 if TYPE_CHECKING:
     from driftscreen.dataset import Dataset
@@ -43,8 +43,9 @@ MAX_SPAN_DAYS = MAX_SPAN_YEARS * 365.25
 #: Prefix of the note of a dataset a screen cannot analyse.
 NOT_ANALYSED = "not analysed: "
 #: What to do about a dataset with too few samples, or too few taxa with reads.
-FEW_SAMPLES_FIX = "add samples, or define larger datasets (fewer --dataset-by columns)"
-FEW_TAXA_FIX = "check the table (and any --depth), or leave this dataset out"
+FEW_SAMPLES_FIX = ("add samples, or define larger datasets "
+                   f"(fewer {mention('dataset_by')} columns)")
+FEW_TAXA_FIX = f"check the table (and any {mention('depth')}), or leave this dataset out"
 
 
 def minimum_samples(time_series: bool) -> int:

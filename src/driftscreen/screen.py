@@ -38,7 +38,7 @@ from driftscreen import calibrate
 from driftscreen.calibrate import (COMBINED, CalibrationPlan, CalibrationSettings, ChunkOutput,
                                    ChunkTask, assemble, plan_calibration, summarize_dataset)
 from driftscreen.dataset import Dataset
-from driftscreen.errors import InputError
+from driftscreen.errors import InputError, mention
 from driftscreen.fdr import qvalues_by_statistic
 from driftscreen.influence import (LEVEL, NOTE_PREFIX, InfluencePlan, finish_influence,
                                    plan_influence, wants_influence)
@@ -419,15 +419,15 @@ def check_backend(backend: str, scheduler: str | None = None) -> None:
                          fix="use " + " or ".join(BACKENDS))
     if backend != "dask" and scheduler is not None:
         raise InputError("a scheduler address needs the Dask backend",
-                         parameter="scheduler", fix="add --backend dask")
+                         parameter="scheduler", fix=f"add {mention('backend')} dask")
     if backend == "dask":
         try:
             import distributed  # noqa: F401
         except ImportError:
             raise InputError("the Dask backend needs the packages dask and distributed",
                              parameter="backend",
-                             fix="pip install 'driftscreen[dask]', or use --backend loky"
-                             ) from None
+                             fix="pip install 'driftscreen[dask]', or use "
+                                 f"{mention('backend')} loky") from None
 
 
 @contextlib.contextmanager

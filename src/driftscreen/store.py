@@ -29,7 +29,7 @@ from pathlib import Path
 from typing import Any
 
 from driftscreen.calibrate import CalibrationSettings
-from driftscreen.errors import InputError
+from driftscreen.errors import InputError, mention
 from driftscreen.files import atomic_write_text, sha256_of
 from driftscreen.power import detectable_settings
 from driftscreen.statistics.registry import default_statistics
@@ -223,8 +223,9 @@ class ResultStore:
         elif fingerprint_key(stored) != store.key:
             changed = "; ".join(differences(stored, fingerprint) or ["store format"])
             raise InputError(f"holds results of a screen with other settings ({changed})",
-                             file=str(store.out), place="option --out",
-                             fix="give another --out folder, or remove this one to start afresh")
+                             file=str(store.out), place=mention("out", named=True),
+                             fix=f"give another {mention('out')} folder, or remove this one to "
+                                 "start afresh")
         return store
 
     def stored_fingerprint(self) -> dict[str, Any] | None:
@@ -258,9 +259,9 @@ class ResultStore:
         """The one-line refusal of a folder that holds no store of this version."""
         return InputError(f"holds a {STORE_FOLDER} folder that is not a resume store of this "
                           f"driftscreen version ({reason})", file=str(self.out),
-                          place="option --out",
-                          fix=f"give a new --out folder, or remove {self.folder} to start "
-                              "afresh")
+                          place=mention("out", named=True),
+                          fix=f"give a new {mention('out')} folder, or remove {self.folder} to "
+                              "start afresh")
 
     def save(self, name: str, outcome: Mapping[str, Any]) -> Path:
         """Write the record of finished dataset ``name`` atomically."""

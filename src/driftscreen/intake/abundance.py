@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from driftscreen.errors import InputError
+from driftscreen.errors import InputError, mention
 from driftscreen.intake.counts import CountTable
 from driftscreen.limits import MAX_READS, MAX_READS_TEXT
 
@@ -122,8 +122,8 @@ def detect_abundance(table: CountTable, abundance: str) -> tuple[str, list[str]]
             sample, taxon = table.first_cell(~whole)
             raise InputError(f"non-integer count {values[sample, taxon]:g}", file=table.label,
                              place=table.cell_place(sample, taxon),
-                             fix="round the counts, or give --abundance fraction or percent "
-                                 "for relative abundances")
+                             fix=f"round the counts, or give {mention('abundance')} fraction or "
+                                 "percent for relative abundances")
         return "counts", []
     if abundance != "auto":
         return abundance, []
@@ -135,8 +135,8 @@ def detect_abundance(table: CountTable, abundance: str) -> tuple[str, list[str]]
         return "percent", [f"read the values as percentages ({span})"]
     raise InputError(f"values are not all whole numbers and {span}, so they are neither "
                      "counts nor fractions nor percentages", file=table.label,
-                     fix="give --abundance fraction or percent for relative abundances, or "
-                         "round counts to whole numbers")
+                     fix=f"give {mention('abundance')} fraction or percent for relative "
+                         "abundances, or round counts to whole numbers")
 
 
 def counts_sum_to_100_warning(table: CountTable) -> list[str]:
@@ -159,7 +159,8 @@ def to_counts(table: CountTable, kind: str, remainder: str, depths: Depths | Non
         return Converted(np.rint(table.values).astype(np.int64), notes=notes, warnings=warnings)
     if depths is None:
         raise InputError(f"relative abundances ({kind}s) need sequencing depths to become counts",
-                         file=table.label, fix="give --depth N or --depth-by COLUMN")
+                         file=table.label,
+                         fix=f"give {mention('depth')} N or {mention('depth_by')} COLUMN")
     fractions = table.values / FULL_SCALE[kind]
     share = fractions.sum(axis=1)
     check_sums(table, kind, share)
@@ -188,7 +189,7 @@ def check_sums(table: CountTable, kind: str, share: np.ndarray) -> None:
         raise InputError(f"abundances of sample '{table.samples[sample]}' sum to "
                          f"{share[sample] * scale:.6g}, more than {scale:g}", file=table.label,
                          place=table.sample_place(sample),
-                         fix="check the table" + (", or give --abundance percent"
+                         fix="check the table" + (f", or give {mention('abundance')} percent"
                                                   if kind == "fraction" else ""))
 
 

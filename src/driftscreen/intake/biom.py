@@ -28,7 +28,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from driftscreen.errors import InputError
+from driftscreen.errors import InputError, mention
 from driftscreen.intake.counts import LINEAGE_NAMES, CountTable, normalised_name
 from driftscreen.intake.metadata import Metadata
 from driftscreen.intake.tables import TextTable, file_label, quoted_list, read_bytes
@@ -68,16 +68,17 @@ class BiomMetadataCells(TextTable):
 class BiomSampleMetadata(Metadata):
     """The sample metadata stored inside a BIOM file (fields instead of columns)."""
 
-    def column(self, name: str, option: str) -> int:
+    def column(self, name: str, parameter: str) -> int:
         fields = self.table.header[1:]
         if name in fields:
             return fields.index(name) + 1
         folded = [k for k, field in enumerate(fields) if field.casefold() == name.casefold()]
         if len(folded) == 1:
             return folded[0] + 1
-        raise InputError(f"no sample metadata field '{name}' (option {option})",
+        raise InputError(f"no sample metadata field '{name}' "
+                         f"({mention(parameter, named=True)})",
                          file=self.label, fix=f"use one of the fields {quoted_list(fields)}, "
-                                              "or give --metadata FILE")
+                                              f"or give {mention('metadata')} FILE")
 
 
 @dataclass(frozen=True)
@@ -155,9 +156,9 @@ def check_text_options(label: str, layout: str, orientation: str, sample_id: str
             raise InputError(f"applies to CSV/TSV tables only, but {label} is a BIOM table",
                              parameter=name, fix="drop it")
     if sample_id is not None and not metadata_given:
-        raise InputError(f"names a column of a --metadata file; the sample ids of {label} are "
-                         "those stored in it", parameter="sample_id",
-                         fix="drop it, or give --metadata FILE")
+        raise InputError(f"names a column of a {mention('metadata')} file; the sample ids of "
+                         f"{label} are those stored in it", parameter="sample_id",
+                         fix=f"drop it, or give {mention('metadata')} FILE")
 
 
 def load_reference_table(label: str, raw: bytes) -> ReferenceTable:
@@ -323,17 +324,19 @@ def lineage_field(label: str, observations: Sequence[Mapping | None] | None,
         folded = [field for field in fields if field.casefold() == lineage.casefold()]
         if len(folded) == 1:
             return folded[0]
-        raise InputError(f"no observation metadata field '{lineage}' (option --lineage)",
+        raise InputError(f"no observation metadata field '{lineage}' "
+                         f"({mention('lineage', named=True)})",
                          file=label, fix=f"use one of the fields {quoted_list(fields)}"
-                         if fields else "give --taxon-map FILE (the file has no observation "
-                                        "metadata)")
+                         if fields else f"give {mention('taxon_map')} FILE (the file has no "
+                                        "observation metadata)")
     if not needed:
         return None
     found = [field for field in fields if normalised_name(field) in LINEAGE_NAMES]
     if not found:
-        raise InputError("no taxonomy in the observation metadata, so --rank cannot aggregate "
-                         "taxa", file=label,
-                         fix="give --taxon-map FILE, or add the taxonomy to the BIOM file")
+        raise InputError(f"no taxonomy in the observation metadata, so {mention('rank')} cannot "
+                         "aggregate taxa", file=label,
+                         fix=f"give {mention('taxon_map')} FILE, or add the taxonomy to the BIOM "
+                             "file")
     return found[0]
 
 

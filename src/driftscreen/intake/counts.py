@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from driftscreen.errors import InputError
+from driftscreen.errors import InputError, mention
 from driftscreen.intake.tables import TextTable, find_column, parse_numbers, quoted_list
 
 TAXON_WORDS = ("taxon", "taxa", "otu", "asv", "esv", "zotu", "feature", "species", "genus",
@@ -130,13 +130,13 @@ def is_long(table: TextTable, lineage: str | None) -> bool:
     """Auto layout: exactly three columns with the sample, taxon and count roles."""
     lineage_index = None
     if lineage is not None and lineage.casefold() in {c.casefold() for c in table.header}:
-        lineage_index = find_column(table, lineage, "--lineage")
+        lineage_index = find_column(table, lineage, "lineage")
     return long_roles(table, lineage_index) is not None
 
 
 def read_long(table: TextTable, lineage: str | None) -> CountTable:
     """A long table: one row per (sample, taxon) with its count; absent pairs are 0."""
-    lineage_index = None if lineage is None else find_column(table, lineage, "--lineage")
+    lineage_index = None if lineage is None else find_column(table, lineage, "lineage")
     roles = long_roles(table, lineage_index) or required_long_roles(table, lineage_index)
     samples_text = ids_of(table, roles["sample"], "sample")
     taxa_text = ids_of(table, roles["taxon"], "taxon")
@@ -239,7 +239,7 @@ def read_wide(table: TextTable, orientation: str, lineage: str | None,
         if lineage is not None:
             raise InputError(f"a lineage column needs taxa as rows, but {table.label} has taxa "
                              "as columns", parameter="lineage",
-                             fix="give lineages in a --taxon-map file instead")
+                             fix=f"give lineages in a {mention('taxon_map')} file instead")
         lineage_index = None
     elif lineage_index is not None and lineage is None:
         name = table.header[lineage_index]
@@ -268,7 +268,7 @@ def read_wide(table: TextTable, orientation: str, lineage: str | None,
 def wide_lineage_column(table: TextTable, lineage: str | None) -> int | None:
     """The lineage column of a wide table: the one named, or one called taxonomy/lineage."""
     if lineage is not None:
-        return find_column(table, lineage, "--lineage")
+        return find_column(table, lineage, "lineage")
     for index, name in enumerate(table.header[1:], start=1):
         if normalised_name(name) in LINEAGE_NAMES:
             return index
@@ -338,7 +338,8 @@ def orientation_from_metadata(table: TextTable, column_ids: set[str], row_ids: s
         return "taxa-columns"
     if in_columns == 0:
         raise InputError("no row or column id matches a metadata sample id", file=table.label,
-                         fix="check --sample-id (the metadata column with sample ids) and the "
-                             "ids in both files")
+                         fix=f"check {mention('sample_id')} (the metadata column with sample "
+                             "ids) and the ids in both files")
     raise InputError(f"{in_rows} row ids and {in_columns} column ids match metadata sample ids",
-                     file=table.label, fix="give --orientation taxa-rows or taxa-columns")
+                     file=table.label,
+                     fix=f"give {mention('orientation')} taxa-rows or taxa-columns")

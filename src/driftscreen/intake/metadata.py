@@ -49,9 +49,10 @@ class Metadata:
     def ids(self) -> frozenset[str]:
         return frozenset(self.row_of)
 
-    def column(self, name: str, option: str) -> int:
-        """Index of a named column; a missing column is an input error listing the others."""
-        return find_column(self.table, name, option)
+    def column(self, name: str, parameter: str) -> int:
+        """Index of the column the intake option ``parameter`` names; a missing column is an
+        input error listing the others."""
+        return find_column(self.table, name, parameter)
 
     def rows(self, samples: Sequence[str]) -> np.ndarray:
         """Data rows of the given samples (all must be present)."""
@@ -66,7 +67,7 @@ class Metadata:
 def read_metadata(path: str, sample_id: str | None) -> Metadata:
     """Read a metadata table; sample ids come from ``sample_id`` or the first column."""
     table = read_text_table(path, min_columns=1)
-    id_column = 0 if sample_id is None else find_column(table, sample_id, "--sample-id")
+    id_column = 0 if sample_id is None else find_column(table, sample_id, "sample_id")
     ids = table.column_text(id_column)
     row_of: dict[str, int] = {}
     for row, sample in enumerate(ids):

@@ -12,7 +12,7 @@ from typing import Any, Literal
 import numpy as np
 
 from driftscreen.dataset import Dataset, Design, TechnicalReplicates
-from driftscreen.errors import InputError
+from driftscreen.errors import InputError, mention
 from driftscreen.intake.abundance import (Converted, Depths, check_values, detect_abundance,
                                           to_counts)
 from driftscreen.intake.biom import is_biom, read_biom
@@ -24,8 +24,8 @@ from driftscreen.intake.tables import (file_label, file_stem, plural, quoted_lis
                                        read_text_table)
 from driftscreen.intake.taxonomy import (Rank, aggregate, aggregation_notes, lineage_grouping,
                                          map_grouping, parse_rank)
-from driftscreen.limits import (MAX_READS, MAX_READS_TEXT, MAX_SPAN_DAYS, MAX_SPAN_YEARS,
-                               MIN_SAMPLES_SNAPSHOT, MIN_TAXA)
+from driftscreen.limits import (FEW_SAMPLES_FIX, MAX_READS, MAX_READS_TEXT, MAX_SPAN_DAYS,
+                               MAX_SPAN_YEARS, MIN_SAMPLES_SNAPSHOT, MIN_TAXA)
 
 OTHER = "other"
 #: The choices of the intake options that take one (the parser offers the same).
@@ -35,6 +35,9 @@ CHOICES = {
     "abundance": ("auto", "counts", "fraction", "percent"),
     "remainder": ("auto", "pool", "renormalise"),
 }
+
+#: The fix of a depth that is not a number of reads.
+DEPTH_FIX = f"give the number of reads per sample, e.g. {mention('depth')} 10000"
 
 
 @dataclass(frozen=True)
@@ -198,18 +201,20 @@ def check_options(metadata: object, sample_id: str | None, dataset_by: Sequence[
                             ("replicate_by", replicate_by)):
             if value is not None:
                 raise InputError("needs a metadata table", parameter=name,
-                                 fix="give --metadata FILE")
+                                 fix=f"give {mention('metadata')} FILE")
     if depth is not None:
         check_depth_number(depth)
         if depth_by is not None:
-            raise InputError("--depth and --depth-by are both given", parameter="depth",
+            raise InputError(f"{mention('depth')} and {mention('depth_by')} are both given",
+                             parameter="depth",
                              fix="give one of them")
     if lineage is not None and taxon_map is not None:
-        raise InputError("--lineage and --taxon-map are both given", parameter="lineage",
+        raise InputError(f"{mention('lineage')} and {mention('taxon_map')} are both given",
+                         parameter="lineage",
                          fix="give one of them")
     if rank is not None and lineage is None and taxon_map is None:
         raise InputError("needs lineages to aggregate taxa", parameter="rank",
-                         fix="give --lineage COLUMN or --taxon-map FILE")
+                         fix=f"give {mention('lineage')} COLUMN or {mention('taxon_map')} FILE")
 
 
 def check_depth_number(depth: object) -> None:
@@ -218,14 +223,14 @@ def check_depth_number(depth: object) -> None:
         value = float(depth)  # type: ignore[arg-type]
     except (TypeError, ValueError):
         raise InputError(f"non-numeric depth '{depth}'", parameter="depth",
-                         fix="give the number of reads per sample, e.g. --depth 10000") from None
+                         fix=DEPTH_FIX) from None
     if not (math.isfinite(value) and value > 0):
         raise InputError(f"depth {depth} is not a positive number", parameter="depth",
-                         fix="give the number of reads per sample, e.g. --depth 10000")
+                         fix=DEPTH_FIX)
     if value > MAX_READS:
         raise InputError(f"depth {depth} is more reads than any sequencing run gives (at most "
                          f"{MAX_READS_TEXT})", parameter="depth",
-                         fix="give the number of reads per sample, e.g. --depth 10000")
+                         fix=DEPTH_FIX)
 
 
 def metadata_columns(meta: Metadata | None, dataset_by: Sequence[str], time_by: str | None,
@@ -234,11 +239,10 @@ def metadata_columns(meta: Metadata | None, dataset_by: Sequence[str], time_by: 
     if meta is None:
         return Columns()
     return Columns(
-        datasets=tuple(meta.column(name, "--dataset-by") for name in dataset_by),
-        time=None if time_by is None else meta.column(time_by, "--time-by"),
-        depth=None if depth_by is None else meta.column(depth_by, "--depth-by"),
-        replicate=None if replicate_by is None else meta.column(replicate_by,
-                                                                "--replicate-by"))
+        datasets=tuple(meta.column(name, "dataset_by") for name in dataset_by),
+        time=None if time_by is None else meta.column(time_by, "time_by"),
+        depth=None if depth_by is None else meta.column(depth_by, "depth_by"),
+        replicate=None if replicate_by is None else meta.column(replicate_by, "replicate_by"))
 
 
 def read_count_table(counts: str | os.PathLike, layout: str, orientation: str,
@@ -248,7 +252,8 @@ def read_count_table(counts: str | os.PathLike, layout: str, orientation: str,
     if layout == "long" or (layout == "auto" and is_long(text, lineage)):
         if orientation != "auto":
             raise InputError(f"applies to wide tables only, but {text.label} is a long table",
-                             parameter="orientation", fix="drop it, or give --layout wide")
+                             parameter="orientation",
+                             fix=f"drop it, or give {mention('layout')} wide")
         return read_long(text, lineage)
     return read_wide(text, orientation, lineage, None if meta is None else meta.ids())
 
@@ -324,7 +329,7 @@ def build_dataset(name: str, members: np.ndarray, table: Table, times: Times | N
         raise InputError(f"only {plural(int(members.size), 'sample', 'samples')}, at least "
                          f"{min_samples} are needed",
                          file=where, place=f"dataset '{name}'",
-                         fix="add samples, or define larger datasets (fewer --dataset-by columns)")
+                         fix=FEW_SAMPLES_FIX)
     counts = table.counts[members]
     present = counts.sum(axis=0) > 0
     dropped = int((~present).sum())
@@ -447,7 +452,7 @@ def check_distinct_times(name: str, members: np.ndarray, days: np.ndarray, table
                          f"the same time '{times.text[second]}'", file=times.label,
                          place=f"dataset '{name}'",
                          fix="give each sample of a time series its own time, or split the "
-                             "data into more datasets with --dataset-by")
+                             f"data into more datasets with {mention('dataset_by')}")
 
 
 def check_span(name: str, members: np.ndarray, days: np.ndarray, table: Table,

@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from driftscreen.errors import InputError
+from driftscreen.errors import InputError, mention
 
 GZIP_MAGIC = b"\x1f\x8b"
 MISSING_TOKENS = frozenset({"", "na", "nan", "n/a", "null", "none", "-"})
@@ -259,14 +259,16 @@ def check_header_names(label: str, header: Sequence[str], min_columns: int) -> N
                              fix="name every column in the header row")
 
 
-def find_column(table: TextTable, name: str, option: str) -> int:
-    """Index of the column ``name`` (exact, else unique case-insensitive match)."""
+def find_column(table: TextTable, name: str, parameter: str) -> int:
+    """Index of the column ``name`` (exact, else unique case-insensitive match) that the
+    intake option ``parameter`` names."""
     if name in table.header:
         return table.header.index(name)
     folded = [i for i, column in enumerate(table.header) if column.casefold() == name.casefold()]
     if len(folded) == 1:
         return folded[0]
-    raise InputError(f"no column '{name}' (option {option})", file=table.label, place="header",
+    raise InputError(f"no column '{name}' ({mention(parameter, named=True)})", file=table.label,
+                     place="header",
                      fix=f"use one of the columns {quoted_list(table.header)}")
 
 

@@ -24,7 +24,7 @@ from driftscreen.taxon_scan import (MIN_CENTRED, MIN_SHAPE, SMALLEST_RATIO, Taxo
                                     detection_probability, expected_occupancy,
                                     leave_one_out, occupancy_tested, pooled_pvalues,
                                     randomised_sides, scan_pvalues, scan_units, compared_values,
-                                    tie_draws, two_sided_pvalues)
+                                    tie_draws, two_sided_pvalues, VERSION)
 
 RNG_DRAWS = 400_000
 
@@ -386,7 +386,7 @@ def test_a_store_written_without_the_scan_is_refused(tables, tmp_path, capsys):
     del stored["taxon_scan"]
     settings.write_text(json.dumps(stored), encoding="utf-8")
     assert main(args) == 2
-    assert "taxon scan: none there, 1 now" in capsys.readouterr().err
+    assert f"taxon scan: none there, {VERSION} now" in capsys.readouterr().err
 
 
 def test_a_taxon_departing_in_every_dataset_is_reported_across_the_screen(tmp_path):

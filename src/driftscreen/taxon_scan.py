@@ -49,21 +49,50 @@ each of which is neutral in its own right. The groups are fixed by the observed 
 kept for every replicate, so that a row of the scan is the same set of taxa in the data
 and in the replicates.
 
-p-values. Each effect gets an equal-tailed two-sided bootstrap p-value against the
-taxon's own replicates, twice the smaller of (1 + #{replicates <= it}) / (B + 1) and
-(1 + #{replicates >= it}) / (B + 1) (the null laws are skewed: distance from the median
-would let a taxon seen in nearly every sample hide a quarter of absences behind the
-replicates' other tail); an effect beyond every replicate on its side gets 1/(B + 1)
-times the tail of a normal law fitted to the replicates beyond the farthest of them (a
+p-values. Each statistic gets an equal-tailed two-sided randomised bootstrap p-value
+against the taxon's own B replicates: with U uniform, the one-sided
+P = (#{replicates < x} + U (1 + #{replicates = x})) / (B + 1) places x at a uniform point
+of its rank's cell among the B + 1 values, ties broken at random, so that P, and the
+two-sided 2 min(P, 1 - P), are exactly Uniform(0, 1) when the data and the replicates are
+exchangeable, for a discrete statistic as for a continuous one (the randomised p-value;
+Habiger 2015, arXiv:1412.0561, "Multiple test functions and adjusted p-values for test
+statistics with discrete distributions", sec. 2; Habiger & Pena 2011, J. Nonparametric
+Stat. 23:583, cited from memory). Equal tails judge a skewed null law on the side the
+observed value lies on. A value beyond every replicate on its side takes, in place of U,
+the tail of a normal law fitted to the replicates beyond the farthest of them (a
 conditional tail extrapolation, in the spirit of Knijnenburg et al. 2009, Bioinformatics
 25:i161, who fit a generalised Pareto tail), so that strong departures stay ordered past
-the resolution of B replicates. A taxon's combined p-value is that of -log10 of the harmonic mean p-value (Wilson 2019, PNAS
-116:1195) of its effects' p-values, calibrated against the same quantity of the
-replicates' leave-one-out p-values, pooled over every taxon of the dataset: each taxon's
-own B replicates cannot give p-values below 1/(B + 1), too coarse for a
-Benjamini-Hochberg adjustment over tens or hundreds of taxa, whereas leave-one-out
-p-values are uniform for every taxon, so their combinations are comparable across taxa.
-Benjamini-Hochberg (1995) q-values are taken across the taxa of the dataset.
+the resolution of B replicates; not for the occupancy, which is discrete. The draws come
+from a :class:`numpy.random.SeedSequence` keyed by the SHA-256 of the replicates' numbers
+of occupied samples (exact integers drawn from the dataset's simulation stream), so they
+are the same for any number of jobs and on resume.
+
+What the p-values are taken on (:func:`compared_values`):
+
+* occupancy: the share of samples with a read itself, not its difference from the
+  expectation. For a taxon seen in (almost) every sample that difference is a function
+  of the fitted theta and p only, and the re-fitted replicates centre on the data's fit,
+  so its p-values piled up near 1. It is tested only where the replicates' 95% band of
+  occupancy is not one value, or the data lie outside it (:func:`occupancy_tested`; the
+  same rule for every replicate's leave-one-out value): a taxon in every sample of
+  nearly every replicate and of the data has no information in its occupancy.
+* variability (asinh of the variance ratio) and persistence are centred on their median
+  over the units of the same table, the data's and each replicate's alike, where there
+  are at least :data:`MIN_CENTRED` units: every taxon's ratio shares its table's
+  re-fitted 1 + theta, every persistence its re-fitted rate, and on short series the
+  re-fitted replicates vary those more than the data's own estimate moves them, which
+  made the replicates' laws wider than the data's (too few small p-values). A taxon is
+  thereby compared with the other taxa of its table, which also removes the shift a few
+  strongly departing taxa give every other taxon through the fitted theta.
+
+A taxon's combined p-value is that of -log10 of the harmonic mean p-value (Wilson 2019,
+PNAS 116:1195) of its statistics' p-values, calibrated against the same quantity of the
+replicates' leave-one-out p-values (each replicate against the others, with its own
+draws), pooled over every taxon of the dataset: each taxon's own B replicates cannot
+give p-values below 1/(B + 1), too coarse for a Benjamini-Hochberg adjustment over tens
+or hundreds of taxa, whereas leave-one-out p-values are uniform for every taxon, so their
+combinations are comparable across taxa. Benjamini-Hochberg (1995) q-values are taken
+across the taxa of the dataset.
 
 Across datasets (:func:`across_datasets`), a taxon's combined p-values from the datasets
 where it is present (on its own, not in a pool) are combined by the Cauchy combination

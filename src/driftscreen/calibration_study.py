@@ -789,11 +789,12 @@ def taxon_sections(neutral: pd.DataFrame, niche: pd.DataFrame) -> list[str]:
              "global null this is the familywise error rate, target at most 0.06), and "
              "Kolmogorov-Smirnov p-values for the uniformity of per-taxon p-values (one "
              "taxon per dataset drawn at random, so that they are independent; the number "
-             "of p-values in brackets; bootstrap p-values are discrete in steps of "
-             "1/(B + 1), which the KS test sees with many datasets, and equal-tailed "
-             "two-sided p-values of discrete laws pile up at 1: a small KS p-value with a "
-             "share of combined p-values at most 0.05 below 0.05 means conservative, not "
-             "over-flagging).", "",
+             "of p-values in brackets; the scan's p-values are randomised, ties and the "
+             "steps of 1/(B + 1) broken by uniform draws, so that they are exactly uniform "
+             "when the data and the replicates are exchangeable, for the discrete "
+             "occupancy too: a small KS p-value means the replicates' law differs from "
+             "the data's, and the share of combined p-values at most 0.05 says on which "
+             "side, below 0.05 conservative, above it over-flagging).", "",
              "| collection | datasets | with a flagged taxon | share | 95% interval | KS "
              "occupancy | KS variability | KS persistence | KS combined | combined p <= "
              f"{TAXON_LEVEL:g} |", "|---|---|---|---|---|---|---|---|---|---|"]

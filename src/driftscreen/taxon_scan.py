@@ -49,21 +49,50 @@ each of which is neutral in its own right. The groups are fixed by the observed 
 kept for every replicate, so that a row of the scan is the same set of taxa in the data
 and in the replicates.
 
-p-values. Each effect gets an equal-tailed two-sided bootstrap p-value against the
-taxon's own replicates, twice the smaller of (1 + #{replicates <= it}) / (B + 1) and
-(1 + #{replicates >= it}) / (B + 1) (the null laws are skewed: distance from the median
-would let a taxon seen in nearly every sample hide a quarter of absences behind the
-replicates' other tail); an effect beyond every replicate on its side gets 1/(B + 1)
-times the tail of a normal law fitted to the replicates beyond the farthest of them (a
+p-values. Each statistic gets an equal-tailed two-sided randomised bootstrap p-value
+against the taxon's own B replicates: with U uniform, the one-sided
+P = (#{replicates < x} + U (1 + #{replicates = x})) / (B + 1) places x at a uniform point
+of its rank's cell among the B + 1 values, ties broken at random, so that P, and the
+two-sided 2 min(P, 1 - P), are exactly Uniform(0, 1) when the data and the replicates are
+exchangeable, for a discrete statistic as for a continuous one (the randomised p-value;
+Habiger 2015, arXiv:1412.0561, "Multiple test functions and adjusted p-values for test
+statistics with discrete distributions", sec. 2; Habiger & Pena 2011, J. Nonparametric
+Stat. 23:583, cited from memory). Equal tails judge a skewed null law on the side the
+observed value lies on. A value beyond every replicate on its side takes, in place of U,
+the tail of a normal law fitted to the replicates beyond the farthest of them (a
 conditional tail extrapolation, in the spirit of Knijnenburg et al. 2009, Bioinformatics
 25:i161, who fit a generalised Pareto tail), so that strong departures stay ordered past
-the resolution of B replicates. A taxon's combined p-value is that of -log10 of the harmonic mean p-value (Wilson 2019, PNAS
-116:1195) of its effects' p-values, calibrated against the same quantity of the
-replicates' leave-one-out p-values, pooled over every taxon of the dataset: each taxon's
-own B replicates cannot give p-values below 1/(B + 1), too coarse for a
-Benjamini-Hochberg adjustment over tens or hundreds of taxa, whereas leave-one-out
-p-values are uniform for every taxon, so their combinations are comparable across taxa.
-Benjamini-Hochberg (1995) q-values are taken across the taxa of the dataset.
+the resolution of B replicates; not for the occupancy, which is discrete. The draws come
+from a :class:`numpy.random.SeedSequence` keyed by the SHA-256 of the replicates' numbers
+of occupied samples (exact integers drawn from the dataset's simulation stream), so they
+are the same for any number of jobs and on resume.
+
+What the p-values are taken on (:func:`compared_values`):
+
+* occupancy: the share of samples with a read itself, not its difference from the
+  expectation. For a taxon seen in (almost) every sample that difference is a function
+  of the fitted theta and p only, and the re-fitted replicates centre on the data's fit,
+  so its p-values piled up near 1. It is tested only where the replicates' 95% band of
+  occupancy is not one value, or the data lie outside it (:func:`occupancy_tested`; the
+  same rule for every replicate's leave-one-out value): a taxon in every sample of
+  nearly every replicate and of the data has no information in its occupancy.
+* variability (asinh of the variance ratio) and persistence are centred on their median
+  over the units of the same table, the data's and each replicate's alike, where there
+  are at least :data:`MIN_CENTRED` units: every taxon's ratio shares its table's
+  re-fitted 1 + theta, every persistence its re-fitted rate, and on short series the
+  re-fitted replicates vary those more than the data's own estimate moves them, which
+  made the replicates' laws wider than the data's (too few small p-values). A taxon is
+  thereby compared with the other taxa of its table, which also removes the shift a few
+  strongly departing taxa give every other taxon through the fitted theta.
+
+A taxon's combined p-value is that of -log10 of the harmonic mean p-value (Wilson 2019,
+PNAS 116:1195) of its statistics' p-values, calibrated against the same quantity of the
+replicates' leave-one-out p-values (each replicate against the others, with its own
+draws), pooled over every taxon of the dataset: each taxon's own B replicates cannot
+give p-values below 1/(B + 1), too coarse for a Benjamini-Hochberg adjustment over tens
+or hundreds of taxa, whereas leave-one-out p-values are uniform for every taxon, so their
+combinations are comparable across taxa. Benjamini-Hochberg (1995) q-values are taken
+across the taxa of the dataset.
 
 Across datasets (:func:`across_datasets`), a taxon's combined p-values from the datasets
 where it is present (on its own, not in a pool) are combined by the Cauchy combination
@@ -73,6 +102,8 @@ to dependence, and q-values are taken across taxa.
 
 from __future__ import annotations
 
+import hashlib
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -80,6 +111,7 @@ import numpy as np
 import pandas as pd
 from scipy import special, stats
 
+from driftscreen import seeds
 from driftscreen.dataset import Design
 from driftscreen.fdr import benjamini_hochberg
 from driftscreen.neutral.model import NullFit
@@ -90,7 +122,7 @@ from driftscreen.statistics.pooling import group_ids
 #: Version of the scan's measures and p-values, part of a screen's settings fingerprint: a
 #: resume store written without the scan (or with another version) is refused, not reused
 #: with taxa missing from taxa.tsv.
-VERSION = 1
+VERSION = 2
 #: Taxa with theta p_i below this are tested in pools of total shape at least this.
 MIN_SHAPE = 1.0
 #: Level at which a taxon is reported as departing, and its effects named in its direction.
@@ -255,16 +287,37 @@ def effects(measures: np.ndarray, scan: TaxonScan) -> np.ndarray:
 #: Statistics whose p-values get the normal tail beyond the farthest replicate (not the
 #: occupancy: a share of samples is discrete, in steps of 1/T).
 TAILED = np.array([False, True, True])
+#: Fewest units for which variability and persistence are centred across the units.
+MIN_CENTRED = 5
 
 
-def tested_scale(values: np.ndarray) -> np.ndarray:
-    """Effects ``(..., S, G)`` on the scale their p-values are taken on: the variance ratio
-    as asinh (about log 2r for large r, defined for the negative ratios a sampling-corrected
-    variance can give), the others as they are. Monotone, so the bootstrap p-values within
-    the replicates' range are unchanged in law; it makes the ratio's right-skewed law closer
-    to the normal whose tail :func:`tail_ratio` extends."""
-    out = np.array(values, dtype=np.float64, copy=True)
-    out[..., 1, :] = np.arcsinh(out[..., 1, :])
+def centred_across_units(values: np.ndarray) -> np.ndarray:
+    """``values`` ``(..., G)`` less their median over the units (last axis); NaN units are
+    left out of the median and stay NaN, an all-NaN table stays NaN."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # numpy's all-NaN slice warning
+        return values - np.nanmedian(values, axis=-1, keepdims=True)
+
+
+def compared_values(measures: np.ndarray, scan: TaxonScan) -> np.ndarray:
+    """What the p-values are taken on, ``(..., S, G)`` from measures ``(..., M, G)``.
+
+    Occupancy: the share of samples with a read (discrete; its ties are broken at random
+    by :func:`two_sided_pvalues`). Variability: asinh of the variance ratio (about log 2r
+    for large r, defined for the negative ratios a sampling-corrected variance can give);
+    persistence: the contrast. With at least :data:`MIN_CENTRED` units, these two are
+    centred on their median over the units of the same table (:func:`centred_across_units`),
+    the data's and each replicate's alike: every taxon's ratio shares the factor 1 + theta
+    of its table's fit (a constant on the asinh scale for ratios above 1) and every
+    taxon's persistence the fitted rate, so the centred values compare a taxon with the
+    other taxa of its table rather than with a re-fitted theta and rate.
+    """
+    rows = [measures[..., OCCUPANCY, :], np.arcsinh(measures[..., VARIANCE_RATIO, :])]
+    if scan.time_series:
+        rows.append(measures[..., PERSISTENCE, :])
+    out = np.stack(rows, axis=-2)
+    if scan.units.starts.size >= MIN_CENTRED:
+        out[..., 1:, :] = centred_across_units(out[..., 1:, :])
     return out
 
 
@@ -304,64 +357,115 @@ def doubled(low: np.ndarray, high: np.ndarray) -> np.ndarray:
     return np.minimum(1.0, 2.0 * np.minimum(low, high))
 
 
-def two_sided_pvalues(observed: np.ndarray, null: np.ndarray, tailed: np.ndarray | bool = True
-                      ) -> tuple[np.ndarray, np.ndarray]:
-    """Bootstrap p-values and null medians of ``observed`` ``(S, G)`` against ``null`` ``(B, S, G)``.
+def randomised_sides(less: np.ndarray, equal: np.ndarray, greater: np.ndarray,
+                     draws: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """One-sided randomised p-values (low, high) of a value against ``less + equal +
+    greater`` exchangeable others: low = (less + U (1 + equal)) / (others + 1), high = 1 - low.
 
-    Equal-tailed: twice the smaller of (1 + #{replicates <= observed}) / (n + 1) and
-    (1 + #{replicates >= observed}) / (n + 1), at most 1, so that a skewed null law (the
-    occupancy of a taxon seen in nearly every sample) is judged on the side the observed
-    value lies on. Beyond the farthest replicate on its side, the one-sided 1/(n + 1) is
-    multiplied by the normal tail ratio :func:`tail_ratio` (scale: the replicates'
-    root-mean-square distance from their median), so that p-values keep ordering taxa past
-    the resolution of B replicates; only for the statistics (rows) where ``tailed``
-    (``(S,)`` or one value) is true. NaN where the observed value is undefined or no
-    replicate is finite.
+    The value's rank among all of them, ties broken by the uniform ``draws`` U and spread
+    uniformly over its cell, so that low is exactly Uniform(0, 1) when the value and the
+    others are exchangeable, whether their law is continuous or discrete.
+    """
+    total = less + equal + greater + 1.0
+    spread = draws * (1.0 + equal)
+    return (less + spread) / total, (greater + (1.0 + equal) - spread) / total
+
+
+def two_sided_pvalues(observed: np.ndarray, null: np.ndarray, draws: np.ndarray,
+                      tailed: np.ndarray | bool = True) -> tuple[np.ndarray, np.ndarray]:
+    """Randomised bootstrap p-values of ``observed`` ``(S, G)`` against ``null``
+    ``(B, S, G)``, and the side each lies on (+1: above the replicates, -1: below).
+
+    Equal-tailed: twice the smaller of the randomised one-sided p-values
+    (:func:`randomised_sides`, ties broken by ``draws`` ``(S, G)``), at most 1, so that a
+    skewed null law is judged on the side the observed value lies on. Beyond the farthest
+    replicate on its side (for the statistics, rows, where ``tailed``: ``(S,)`` or one
+    value), U is replaced by the normal tail ratio :func:`tail_ratio` (scale: the
+    replicates' root-mean-square distance from their median), so that p-values keep
+    ordering taxa past the resolution of B replicates. NaN where the observed value is
+    undefined or no replicate is finite.
     """
     n, center, scale = null_summary(null)
     tail = np.asarray(tailed)[..., None]
     finite = np.isfinite(null)
-    below = np.count_nonzero(finite & (null <= observed), axis=0)
-    above = np.count_nonzero(finite & (null >= observed), axis=0)
+    less = np.count_nonzero(finite & (null < observed), axis=0)
+    equal = np.count_nonzero(finite & (null == observed), axis=0)
+    greater = n - less - equal
+    low, high = randomised_sides(less, equal, greater, draws)
     with np.errstate(invalid="ignore"):
         lowest = np.nanmin(np.where(finite, null, np.inf), axis=0)
         highest = np.nanmax(np.where(finite, null, -np.inf), axis=0)
-    low = np.where((below == 0) & tail,
-                   tail_ratio(center - observed, center - lowest, scale, n), 1.0 + below)
-    high = np.where((above == 0) & tail,
-                    tail_ratio(observed - center, highest - center, scale, n), 1.0 + above)
-    pvalues = doubled(low / (n + 1.0), high / (n + 1.0))
-    return np.where(np.isfinite(observed) & (n > 0), pvalues, np.nan), center
+    low = np.where((less + equal == 0) & tail,
+                   tail_ratio(center - observed, center - lowest, scale, n) / (n + 1.0), low)
+    high = np.where((greater + equal == 0) & tail,
+                    tail_ratio(observed - center, highest - center, scale, n) / (n + 1.0), high)
+    valid = np.isfinite(observed) & (n > 0)
+    return (np.where(valid, doubled(low, high), np.nan),
+            np.where(valid, np.where(high < low, 1.0, -1.0), np.nan))
 
 
-def leave_one_out(null: np.ndarray, tailed: np.ndarray | bool = True) -> np.ndarray:
+def leave_one_out(null: np.ndarray, draws: np.ndarray, tailed: np.ndarray | bool = True
+                  ) -> np.ndarray:
     """Each replicate's two-sided p-value against the others, ``(B, S, G)``; NaN stays NaN.
 
-    As :func:`two_sided_pvalues` with the other n - 1 replicates as the null: the
-    one-sided counts (1 + #others <= x) / n and (1 + #others >= x) / n, and for the
-    smallest and the largest replicate the tail beyond the nearest other one, with the
-    others' scale (where ``tailed``).
+    As :func:`two_sided_pvalues` with the other n - 1 replicates as the null and the
+    replicate's own uniform ``draws`` ``(B, S, G)``; for the smallest and the largest
+    replicate the tail beyond the nearest other one, with the others' scale (where
+    ``tailed``).
     """
     n, center, _ = null_summary(null)
     finite = np.isfinite(null)
     tail = np.asarray(tailed)[..., None]
     high_filled = np.where(finite, null, np.inf)
-    below = stats.rankdata(high_filled, method="max", axis=0) - 1
-    above = n - stats.rankdata(high_filled, method="min", axis=0)
+    less = stats.rankdata(high_filled, method="min", axis=0) - 1
+    equal = stats.rankdata(high_filled, method="max", axis=0) - 1 - less
+    greater = n - 1 - less - equal
+    low, high = randomised_sides(less, equal, greater, draws)
     ordered = np.sort(high_filled, axis=0)
     second_lowest = ordered[min(1, ordered.shape[0] - 1)]  # one replicate: no others
     second_highest = np.take_along_axis(ordered, np.maximum(n - 2, 0)[None], axis=0)[0]
     squares = np.where(finite, (null - center) ** 2, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         others_scale = np.sqrt(np.maximum(squares.sum(axis=0) - squares, 0.0) / (n - 1))
-        low = np.where((below == 0) & tail,
-                       tail_ratio(center - null, center - second_lowest, others_scale, n - 1),
-                       1.0 + below)
-        high = np.where((above == 0) & tail,
-                        tail_ratio(null - center, second_highest - center, others_scale, n - 1),
-                        1.0 + above)
-        out = doubled(low / n, high / n)
+        low = np.where((less + equal == 0) & tail,
+                       tail_ratio(center - null, center - second_lowest, others_scale, n - 1)
+                       / n, low)
+        high = np.where((greater + equal == 0) & tail,
+                        tail_ratio(null - center, second_highest - center, others_scale, n - 1)
+                        / n, high)
+        out = doubled(low, high)
     return np.where(finite & (n >= 2), out, np.nan)
+
+
+def tie_draws(observed: np.ndarray, null: np.ndarray, n_samples: int, shape: tuple[int, ...]
+              ) -> tuple[np.ndarray, np.ndarray]:
+    """Uniform draws for the observed values ``shape`` ``(S, G)`` and for every replicate
+    ``(B, S, G)``, from a stream keyed by the replicates.
+
+    The stream is a :class:`numpy.random.SeedSequence` whose entropy is the SHA-256 of the
+    numbers of samples with a read, per unit, in the data and in every replicate (exact
+    integers): the replicates come from the dataset's own simulation stream
+    (:mod:`driftscreen.seeds`), so the draws follow the master seed and the dataset's name
+    and are the same for any number of jobs, on any machine, and on resume.
+    """
+    occupied = np.concatenate([observed[None, OCCUPANCY], null[:, OCCUPANCY]])
+    digest = hashlib.sha256(np.rint(occupied * n_samples).astype("<i8").tobytes()).digest()
+    rng = seeds.generator(np.random.SeedSequence(
+        [int.from_bytes(digest[i:i + 4], "little") for i in range(0, 16, 4)]))
+    return rng.random(shape), rng.random((null.shape[0],) + shape)
+
+
+def occupancy_tested(occupancy: np.ndarray, null: np.ndarray) -> np.ndarray:
+    """Where an occupancy ``(..., G)`` (the data's, or each replicate's) is tested: where the
+    replicates' band (:data:`BAND`) is not one value, or the occupancy lies outside it.
+
+    A taxon detected in every sample of nearly every replicate, and of the table at hand,
+    has no information in its occupancy (its randomised p-value would be a uniform draw);
+    the same taxon missing from samples is the clearest departure there is, tested against
+    the replicates at a level of at most the replicates' share outside the band.
+    """
+    low, high = np.quantile(null[:, OCCUPANCY], BAND, axis=0)
+    return (low < high) | (occupancy < low) | (occupancy > high)
 
 
 def hmp_statistic(pvalues: np.ndarray) -> np.ndarray:
@@ -389,6 +493,23 @@ def direction_text(statistics: Sequence[str], pvalues: np.ndarray, signs: np.nda
     return "; ".join(DIRECTIONS[statistics[j]][0 if signs[j] > 0 else 1] for j in chosen)
 
 
+def scan_pvalues(scan: TaxonScan, observed: np.ndarray, null: np.ndarray, n_samples: int
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per-statistic p-values and sides ``(S, G)`` and combined p-values ``(G,)`` of the
+    data's measures ``(M, G)`` against the replicates' ``(B, M, G)``.
+
+    Occupancy is tested only where it is informative (:func:`occupancy_tested`).
+    """
+    tailed = TAILED[:len(scan.statistics)]
+    tested, tested_null = compared_values(observed, scan), compared_values(null, scan)
+    draws, null_draws = tie_draws(observed, null, n_samples, tested.shape)
+    pvalues, sides = two_sided_pvalues(tested, tested_null, draws, tailed)
+    loo = leave_one_out(tested_null, null_draws, tailed)
+    pvalues[0] = np.where(occupancy_tested(observed[OCCUPANCY], null), pvalues[0], np.nan)
+    loo[:, 0] = np.where(occupancy_tested(null[:, OCCUPANCY], null), loo[:, 0], np.nan)
+    return pvalues, sides, pooled_pvalues(hmp_statistic(pvalues), hmp_statistic(loo))
+
+
 def scan_table(scan: TaxonScan, counts: np.ndarray, design: Design, observed: np.ndarray,
                null: np.ndarray) -> pd.DataFrame:
     """One row per unit, most abundant first: measures, effects, p-values, q, direction.
@@ -397,12 +518,8 @@ def scan_table(scan: TaxonScan, counts: np.ndarray, design: Design, observed: np
     ``(B, M, G)``. ``taxon`` is the index of the unit's most abundant taxon and
     ``members`` its number of taxa.
     """
-    observed_effects, null_effects = effects(observed, scan), effects(null, scan)
-    tailed = TAILED[:len(scan.statistics)]
-    pvalues, center = two_sided_pvalues(tested_scale(observed_effects),
-                                        tested_scale(null_effects), tailed)
-    combined = pooled_pvalues(hmp_statistic(pvalues),
-                              hmp_statistic(leave_one_out(tested_scale(null_effects), tailed)))
+    observed_effects = effects(observed, scan)
+    pvalues, sides, combined = scan_pvalues(scan, observed, null, counts.shape[0])
     band = np.quantile(null[:, OCCUPANCY], BAND, axis=0)
     mean = scan.units.sums(counts / design.depths[:, None]).mean(axis=0)
     columns: dict[str, np.ndarray] = {
@@ -412,11 +529,10 @@ def scan_table(scan: TaxonScan, counts: np.ndarray, design: Design, observed: np
     for j, name in enumerate(scan.statistics):
         columns[f"{name}_effect"] = observed_effects[j]
         columns[f"{name}_p"] = pvalues[j]
-    signs = np.sign(observed_effects - center)
     columns["combined_p"] = combined
     columns["q_value"] = benjamini_hochberg(combined)
     columns["direction"] = np.array(
-        [direction_text(scan.statistics, pvalues[:, u], signs[:, u])
+        [direction_text(scan.statistics, pvalues[:, u], sides[:, u])
          for u in range(combined.size)], dtype=object)
     order = np.argsort(-mean, kind="stable")
     return pd.DataFrame({name: values[order] for name, values in columns.items()})

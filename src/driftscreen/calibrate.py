@@ -655,8 +655,10 @@ def taxon_results(plan: CalibrationPlan, outputs: list[ChunkOutput]) -> pd.DataF
     if plan.taxon_scan is None or any(out.taxa is None for out in outputs):
         return None
     dataset = plan.dataset
+    ties = seeds.substream(seeds.dataset_stream(plan.settings.seed, dataset.name),
+                           seeds.TAXON_TIES)
     table = scan_table(plan.taxon_scan, dataset.counts, dataset.design, plan.observed_taxa,
-                       np.concatenate([out.taxa for out in outputs]))
+                       np.concatenate([out.taxa for out in outputs]), seeds.generator(ties))
     return storable_table(table, dataset.taxa)
 
 

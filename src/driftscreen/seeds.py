@@ -16,6 +16,8 @@ import numpy as np
 SIMULATION = 0
 STATISTICS = 1
 PILOT = 2
+#: The per-taxon scan's tie-breaking draws (randomised p-values).
+TAXON_TIES = 3
 
 
 def name_key(name: str) -> tuple[int, ...]:

@@ -63,9 +63,8 @@ the tail of a normal law fitted to the replicates beyond the farthest of them (a
 conditional tail extrapolation, in the spirit of Knijnenburg et al. 2009, Bioinformatics
 25:i161, who fit a generalised Pareto tail), so that strong departures stay ordered past
 the resolution of B replicates; not for the occupancy, which is discrete. The draws come
-from a :class:`numpy.random.SeedSequence` keyed by the SHA-256 of the replicates' numbers
-of occupied samples (exact integers drawn from the dataset's simulation stream), so they
-are the same for any number of jobs and on resume.
+from the dataset's own stream of the master seed (:mod:`driftscreen.seeds`), so they are
+the same for any number of jobs and on resume.
 
 What the p-values are taken on (:func:`compared_values`):
 
@@ -102,7 +101,6 @@ to dependence, and q-values are taken across taxa.
 
 from __future__ import annotations
 
-import hashlib
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -111,7 +109,6 @@ import numpy as np
 import pandas as pd
 from scipy import special, stats
 
-from driftscreen import seeds
 from driftscreen.dataset import Design
 from driftscreen.fdr import benjamini_hochberg
 from driftscreen.neutral.model import NullFit
@@ -437,22 +434,11 @@ def leave_one_out(null: np.ndarray, draws: np.ndarray, tailed: np.ndarray | bool
     return np.where(finite & (n >= 2), out, np.nan)
 
 
-def tie_draws(observed: np.ndarray, null: np.ndarray, n_samples: int, shape: tuple[int, ...]
+def tie_draws(rng: np.random.Generator, shape: tuple[int, ...], n_replicates: int
               ) -> tuple[np.ndarray, np.ndarray]:
     """Uniform draws for the observed values ``shape`` ``(S, G)`` and for every replicate
-    ``(B, S, G)``, from a stream keyed by the replicates.
-
-    The stream is a :class:`numpy.random.SeedSequence` whose entropy is the SHA-256 of the
-    numbers of samples with a read, per unit, in the data and in every replicate (exact
-    integers): the replicates come from the dataset's own simulation stream
-    (:mod:`driftscreen.seeds`), so the draws follow the master seed and the dataset's name
-    and are the same for any number of jobs, on any machine, and on resume.
-    """
-    occupied = np.concatenate([observed[None, OCCUPANCY], null[:, OCCUPANCY]])
-    digest = hashlib.sha256(np.rint(occupied * n_samples).astype("<i8").tobytes()).digest()
-    rng = seeds.generator(np.random.SeedSequence(
-        [int.from_bytes(digest[i:i + 4], "little") for i in range(0, 16, 4)]))
-    return rng.random(shape), rng.random((null.shape[0],) + shape)
+    ``(B, S, G)``, from the dataset's own stream (:data:`driftscreen.seeds.TAXON_TIES`)."""
+    return rng.random(shape), rng.random((n_replicates,) + shape)
 
 
 def occupancy_tested(occupancy: np.ndarray, null: np.ndarray) -> np.ndarray:
@@ -493,8 +479,8 @@ def direction_text(statistics: Sequence[str], pvalues: np.ndarray, signs: np.nda
     return "; ".join(DIRECTIONS[statistics[j]][0 if signs[j] > 0 else 1] for j in chosen)
 
 
-def scan_pvalues(scan: TaxonScan, observed: np.ndarray, null: np.ndarray, n_samples: int
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def scan_pvalues(scan: TaxonScan, observed: np.ndarray, null: np.ndarray,
+                 rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Per-statistic p-values and sides ``(S, G)`` and combined p-values ``(G,)`` of the
     data's measures ``(M, G)`` against the replicates' ``(B, M, G)``.
 
@@ -502,7 +488,7 @@ def scan_pvalues(scan: TaxonScan, observed: np.ndarray, null: np.ndarray, n_samp
     """
     tailed = TAILED[:len(scan.statistics)]
     tested, tested_null = compared_values(observed, scan), compared_values(null, scan)
-    draws, null_draws = tie_draws(observed, null, n_samples, tested.shape)
+    draws, null_draws = tie_draws(rng, tested.shape, null.shape[0])
     pvalues, sides = two_sided_pvalues(tested, tested_null, draws, tailed)
     loo = leave_one_out(tested_null, null_draws, tailed)
     pvalues[0] = np.where(occupancy_tested(observed[OCCUPANCY], null), pvalues[0], np.nan)
@@ -511,7 +497,7 @@ def scan_pvalues(scan: TaxonScan, observed: np.ndarray, null: np.ndarray, n_samp
 
 
 def scan_table(scan: TaxonScan, counts: np.ndarray, design: Design, observed: np.ndarray,
-               null: np.ndarray) -> pd.DataFrame:
+               null: np.ndarray, rng: np.random.Generator) -> pd.DataFrame:
     """One row per unit, most abundant first: measures, effects, p-values, q, direction.
 
     ``observed`` holds the data's measures ``(M, G)``, ``null`` the replicates'
@@ -519,7 +505,7 @@ def scan_table(scan: TaxonScan, counts: np.ndarray, design: Design, observed: np
     ``members`` its number of taxa.
     """
     observed_effects = effects(observed, scan)
-    pvalues, sides, combined = scan_pvalues(scan, observed, null, counts.shape[0])
+    pvalues, sides, combined = scan_pvalues(scan, observed, null, rng)
     band = np.quantile(null[:, OCCUPANCY], BAND, axis=0)
     mean = scan.units.sums(counts / design.depths[:, None]).mean(axis=0)
     columns: dict[str, np.ndarray] = {

@@ -257,6 +257,30 @@ def test_autocorrelation_factor_is_the_variance_inflation_of_an_ar1_mean():
     assert np.all(autocorrelation_factor(shallow, fit) < expected)
 
 
+def test_autocorrelation_factor_dilutes_drift_by_the_technical_noise():
+    # With Dirichlet-multinomial reads at precision C the read fraction of a taxon at share
+    # x has variance x (1 - x)(g + (1 - g)/n), g = 1/(1 + C) (Mosimann 1962, Biometrika
+    # 49:65; here from scipy.stats.dirichlet_multinomial), independent between samples, so
+    # the drift share of sample t is f_t = v / (v + (1 - v) s_t) with s_t that variance over
+    # x (1 - x). The factor is the double sum of the module docstring with those shares.
+    theta, rate, precision, x = 60.0, 0.3, 150.0, 0.3
+    depths = np.array([400, 3000, 800, 12000, 1500, 5000, 900, 2500])
+    design = daily_design(depths.size, depths)
+    noise = 1.0 / (1.0 + precision)
+    fit = NullFit(np.full((1, 3), 1 / 3), np.array([theta]), np.array([rate]),
+                  np.zeros(1, dtype=bool), np.array([noise]))
+    reads = np.array([stats.dirichlet_multinomial([precision * x, precision * (1 - x)], n)
+                      .var()[0] / n**2 for n in depths]) / (x * (1 - x))
+    v = 1.0 / (1.0 + theta)
+    weight = (v / (v + (1 - v) * reads)) ** 2
+    lags = np.abs(np.subtract.outer(design.times, design.times))
+    cross = np.sum(np.outer(weight, weight) * np.exp(-2 * rate * lags)) - np.sum(weight**2)
+    np.testing.assert_allclose(autocorrelation_factor(design, fit),
+                               1 + cross / weight.sum(), rtol=1e-9)
+    noiseless = NullFit(fit.p, fit.theta, fit.rate, fit.clipped)
+    assert autocorrelation_factor(design, fit)[0] < autocorrelation_factor(design, noiseless)[0]
+
+
 @pytest.mark.slow
 def test_autocorrelation_factor_removes_most_of_the_rate_dependence():
     # Neutral daily series (theta = 40, K = 40, T = 60): the raw composite LR more than

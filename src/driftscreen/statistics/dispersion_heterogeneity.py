@@ -244,14 +244,20 @@ def pilot_theta(counts: np.ndarray, depths: np.ndarray, p: np.ndarray) -> np.nda
 def autocorrelation_factor(design: Design, fit: NullFit) -> np.ndarray:
     """phi = 1 + sum_{s != t} w_s w_t exp(-2 rate |t_s - t_t|) / sum_t w_t per table, ``(R,)``.
 
-    w_t = f_t^2, f_t = v/(v + (1 - v)/n_t), v = 1/(1 + theta) from ``fit`` (see the module
-    docstring); 1 for a snapshot. The double sum runs in O(T) through the recursion
+    w_t = f_t^2, f_t = v/(v + (1 - v) s_t) the share of drift in the variance of sample t,
+    v = 1/(1 + theta) and s_t = g + (1 - g)/n_t the read variance factor at the fitted noise
+    g = 1/(1 + C) (Mosimann 1962, Biometrika 49:65; g = 0 for multinomial reads), from
+    ``fit`` (see the module docstring); 1 for a snapshot. Technical noise is independent
+    between samples, so it dilutes the correlation of squared deviations like binomial
+    sampling does. The double sum runs in O(T) through the recursion
     S_t = exp(-2 rate dt_t) (S_{t-1} + w_{t-1}) over the sorted times.
     """
     if design.times is None or fit.rate is None:
         return np.ones(fit.theta.shape)
     v = 1.0 / (1.0 + fit.theta[:, None])
-    share = v / (v + (1.0 - v) / design.depths.astype(np.float64))
+    g = fit.noise[:, None]
+    reads = g + (1.0 - g) / design.depths.astype(np.float64)
+    share = v / (v + (1.0 - v) * reads)
     weight = share * share                                               # (R, T)
     carried = np.zeros(fit.theta.shape)
     cross = np.zeros(fit.theta.shape)

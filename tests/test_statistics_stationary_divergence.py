@@ -7,9 +7,13 @@ import pandas as pd
 import pytest
 from scipy import special, stats
 
+from driftscreen.dataset import Design
 from driftscreen.neutral.fit import fitted_model
-from driftscreen.neutral.model import NeutralModel
-from driftscreen.statistics.composition import precision_weighted_composition
+from driftscreen.neutral.model import NeutralModel, NullFit
+from driftscreen.neutral.simulate import simulate
+from driftscreen.statistics.composition import (path_composition,
+                                                precision_weighted_composition,
+                                                relaxation_weights)
 from driftscreen.statistics.stationary_divergence import (
     StationaryDivergence,
     class_edges,
@@ -18,6 +22,7 @@ from driftscreen.statistics.stationary_divergence import (
     kl_divergence,
     miller_madow_bias,
     observed_class_frequencies,
+    off_path,
     zero_probability,
 )
 from test_statistics_synthetic import (
@@ -148,8 +153,77 @@ def test_observed_classes_count_samples_by_hand():
     counts = np.array([0, 1, 3, 5, 8, 0])[None, :, None]
     depths = np.full(6, 10.0)
     edges = np.array([[[0.1, 0.35]]])
-    observed = observed_class_frequencies(counts, depths, edges)
+    observed = observed_class_frequencies(counts, counts / depths[:, None], edges)
     np.testing.assert_allclose(observed[0, 0], np.array([2, 1, 1, 2]) / 6)
+
+
+def disturbed_series(n_replicates: int, seed: int) -> tuple[np.ndarray, Design, np.ndarray,
+                                                           np.ndarray, float]:
+    """Neutral series whose three most abundant taxa start at a tenth of their share."""
+    rng = np.random.default_rng(seed)
+    start = P.copy()
+    top = np.argsort(-P)[:3]
+    start[top] /= 10
+    design = Design(np.full(25, 20_000), np.arange(25.0))
+    rate = 0.15
+    counts = simulate(NeutralModel(P, 300.0, rate), design, n_replicates, rng,
+                      start=start / start.sum())
+    return counts, design, top, start / start.sum(), rate
+
+
+def test_off_path_values_vary_about_p_after_a_disturbance():
+    # The neutral mean relaxes as E[X(t)] = p + (x_0 - p) exp(-rate t) given the start x_0
+    # (Ornstein-Uhlenbeck mean of the diffusion; Ewens 2004, "Mathematical Population
+    # Genetics", ch. 5; design note, section 2), so Y_t - (Y_0 - p) e_t has mean p at every
+    # later time, while the read fractions themselves are far below p early on.
+    counts, design, top, start, rate = disturbed_series(400, seed=31)
+    relative = counts / design.depths[:, None]
+    weights = relaxation_weights(design, np.full(counts.shape[0], rate))
+    np.testing.assert_allclose(weights[0], np.exp(-rate * design.times), rtol=1e-12)
+    shifted = off_path(relative, np.broadcast_to(P, (counts.shape[0], P.size)), weights)
+    assert shifted.shape == (400, 24, P.size)
+    mean = shifted[:, :, top].mean(axis=0)
+    se = shifted[:, :, top].std(axis=0, ddof=1) / np.sqrt(400)
+    assert np.all(np.abs(mean - P[top]) < 5 * se + 1e-4)
+    assert np.all(relative[:, 1:6, top].mean(axis=0) < 0.7 * P[top])
+
+
+def test_path_composition_recovers_p_where_the_time_mean_does_not():
+    counts, design, top, _, rate = disturbed_series(200, seed=32)
+    theta = np.full(200, 300.0)
+    weights = relaxation_weights(design, np.full(200, rate))
+    depths = design.depths.astype(float)
+    relaxed = path_composition(counts, depths, theta, weights)
+    np.testing.assert_allclose(relaxed.sum(axis=1), 1.0)
+    np.testing.assert_allclose(relaxed[:, top].mean(axis=0) / P[top], 1.0, atol=0.08)
+    time_mean = precision_weighted_composition(counts, depths, theta)
+    assert np.all(time_mean[:, top].mean(axis=0) / P[top] < 0.8)
+
+
+def test_a_conditioned_null_measures_the_divergence_off_the_relaxation_path():
+    # A neutral series starting from a bloom (one taxon at 40%) fills the outer classes of
+    # the stationary law while it relaxes; taken off its relaxation path it is close to a
+    # stationary series (60 daily samples, rate 0.2: 12 correlation times; measured excess of
+    # the medians over the stationary series 0.80 against the stationary law, 0.15 off the
+    # path; 60 series each).
+    n, rate, theta = 60, 0.2, 300.0
+    rng = np.random.default_rng(31)
+    start = 0.6 * P
+    start[10] += 0.4
+    design = Design(np.full(60, 20_000), np.arange(60.0))
+    model = NeutralModel(P, theta, rate)
+    bloom = simulate(model, design, n, rng, start=start)
+    stationary = simulate(model, design, n, rng)
+    flat = NullFit(np.broadcast_to(P, (n, P.size)), np.full(n, theta), np.full(n, rate),
+                   np.zeros(n, dtype=bool))
+    along = NullFit(flat.p, flat.theta, flat.rate, flat.clipped, conditioned=True)
+
+    def excess(fit: NullFit) -> float:
+        return float(np.median(STAT.compute(bloom, design, fit, None))
+                     - np.median(STAT.compute(stationary, design, fit, None)))
+
+    assert excess(flat) > 0.5
+    assert excess(along) < excess(flat) / 3
 
 
 def test_depth_bins_cover_all_samples_and_respect_the_bin_limit():

@@ -68,7 +68,8 @@ def fitted(counts: np.ndarray, design: Design) -> tuple[np.ndarray, NullFit]:
 def fit_rows(fit: NullFit, rows: slice) -> NullFit:
     """The fits of the tables ``rows`` of a batch."""
     rate = None if fit.rate is None else fit.rate[rows]
-    return NullFit(fit.p[rows], fit.theta[rows], rate, fit.clipped[rows], fit.noise[rows])
+    return NullFit(fit.p[rows], fit.theta[rows], rate, fit.clipped[rows], fit.noise[rows],
+                   fit.conditioned)
 
 
 def sequence(fractions: np.ndarray, depths: np.ndarray, rng: np.random.Generator) -> np.ndarray:

@@ -267,7 +267,7 @@ def bias_corrected_model(model: NeutralModel, design: Design,
             f"replicates: moment estimates theta {model.theta:.4g}"
             + (f", rate {model.rate:.4g} per day" if model.rate is not None else "")
             + (f", read precision {model.precision:.4g}" if model.noise > 0 else ""))
-    return NeutralModel(model.p, theta, rate, noise, model.flags + (note,))
+    return NeutralModel(model.p, theta, rate, noise, model.flags + (note,), model.conditioned)
 
 
 def plan_calibration(dataset: Dataset, settings: CalibrationSettings,

@@ -75,7 +75,8 @@ def summary_from_dict(data: Mapping[str, Any]) -> DatasetSummary:
 def model_to_dict(model: NeutralModel) -> dict[str, Any]:
     return {"p": floats_to_json(model.p), "theta": float_to_json(model.theta),
             "rate": None if model.rate is None else float_to_json(model.rate),
-            "noise": float_to_json(model.noise), "flags": list(model.flags)}
+            "noise": float_to_json(model.noise), "flags": list(model.flags),
+            "conditioned": model.conditioned}
 
 
 def model_from_dict(data: Mapping[str, Any]) -> NeutralModel:
@@ -83,7 +84,8 @@ def model_from_dict(data: Mapping[str, Any]) -> NeutralModel:
     return NeutralModel(p=floats_from_json(data["p"]), theta=float_from_json(data["theta"]),
                         rate=None if rate is None else float_from_json(rate),
                         noise=float_from_json(data.get("noise", 0.0)),
-                        flags=tuple(data["flags"]))
+                        flags=tuple(data["flags"]),
+                        conditioned=bool(data.get("conditioned", False)))
 
 
 def parameter_to_dict(parameter: ParameterEstimate) -> dict[str, Any]:

@@ -283,9 +283,11 @@ def fit_batch(counts: np.ndarray, design: Design,
                                                            series, noise[part] if fixed else None)
     clipped = ~((v >= V_MIN) & (v <= V_MAX))
     v = np.clip(np.nan_to_num(v, nan=V_MIN), V_MIN, V_MAX)
-    if series is not None and options.conditioned:
+    conditioned = series is not None and options.conditioned
+    if conditioned:
         p = relaxation_composition(counts, p, design, rate)
-    return NullFit(p=p, theta=1.0 / v - 1.0, rate=rate, clipped=clipped, noise=noise)
+    return NullFit(p=p, theta=1.0 / v - 1.0, rate=rate, clipped=clipped, noise=noise,
+                   conditioned=conditioned)
 
 
 def relaxation_composition(counts: np.ndarray, pooled: np.ndarray, design: Design,
@@ -338,7 +340,7 @@ def fitted_model(result: NullFit, design: Design, options: NullOptions = NullOpt
     else:
         flags += _noise_flags(design, rate, float(result.noise[index]), options)
     return NeutralModel(result.p[index], float(result.theta[index]), rate,
-                        float(result.noise[index]), flags)
+                        float(result.noise[index]), flags, result.conditioned)
 
 
 def correlation_weight(rate: np.ndarray, design: Design) -> np.ndarray:

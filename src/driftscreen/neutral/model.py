@@ -97,6 +97,10 @@ class NeutralModel:
         in [0, 1); 0 (the default) is multinomial sequencing.
     flags:
         Plain-text notes from fitting (e.g. a clipped estimate, weak identifiability).
+    conditioned:
+        True when the model's time series is conditioned on its observed first sample: it
+        relaxes from there along E[X(t)] = p + (x_0 - p) exp(-rate (t - t_0)) (only with a
+        rate).
     """
 
     p: np.ndarray
@@ -104,6 +108,7 @@ class NeutralModel:
     rate: float | None = None
     noise: float = 0.0
     flags: tuple[str, ...] = field(default=())
+    conditioned: bool = False
 
     def __post_init__(self) -> None:
         p = np.asarray(self.p, dtype=np.float64)
@@ -123,6 +128,8 @@ class NeutralModel:
         if not (np.isfinite(self.noise) and 0.0 <= self.noise < 1.0):
             raise ValueError(f"noise must lie in [0, 1), got {self.noise}")
         object.__setattr__(self, "noise", float(self.noise))
+        if self.conditioned and self.rate is None:
+            raise ValueError("a model conditioned on its first sample needs a rate")
 
     @property
     def precision(self) -> float:
@@ -160,6 +167,9 @@ class NullFit:
         and was clipped to the allowed range.
     noise:
         Shape ``(R,)``: technical noise g = 1 / (1 + C) of the reads (0: multinomial).
+    conditioned:
+        True when every table is a time series conditioned on its first sample (as
+        :attr:`NeutralModel.conditioned`).
     """
 
     p: np.ndarray
@@ -167,6 +177,7 @@ class NullFit:
     rate: np.ndarray | None
     clipped: np.ndarray
     noise: np.ndarray | None = None
+    conditioned: bool = False
 
     def __post_init__(self) -> None:
         if self.noise is None:
@@ -206,4 +217,5 @@ def single_fit(model: NeutralModel) -> NullFit:
     """A batch-of-one NullFit holding ``model``."""
     rate = None if model.rate is None else np.array([model.rate])
     return NullFit(p=model.p[None], theta=np.array([model.theta]), rate=rate,
-                   clipped=np.array([False]), noise=np.array([model.noise]))
+                   clipped=np.array([False]), noise=np.array([model.noise]),
+                   conditioned=model.conditioned)

@@ -4,6 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 
+from driftscreen.dataset import Design
+from driftscreen.neutral.fit import MAX_START_WEIGHT, MIN_RELAXED_SHARE
+
 
 def precision_weighted_composition(counts: np.ndarray, depths: np.ndarray,
                                    theta: np.ndarray) -> np.ndarray:
@@ -21,3 +24,31 @@ def precision_weighted_composition(counts: np.ndarray, depths: np.ndarray,
     weights = 1.0 / (1.0 + (depths - 1.0) * v[:, None])                  # (R, T)
     weighted = np.einsum("rtk,rt->rk", counts, weights)
     return weighted / (weights @ depths)[:, None]
+
+
+def relaxation_weights(design: Design, rate: np.ndarray) -> np.ndarray:
+    """e_t = exp(-rate (t - t_0)): the weight of the first sample in the neutral mean at each
+    time, E[X(t) | x_0] = p + (x_0 - p) e_t (design note, section 2), shape ``(R, T)``."""
+    return np.exp(-rate[:, None] * (design.times - design.times[0])[None, :])
+
+
+def path_composition(counts: np.ndarray, depths: np.ndarray, theta: np.ndarray,
+                     start_weight: np.ndarray) -> np.ndarray:
+    """The point a series conditioned on its first sample relaxes to, precision-weighted.
+
+    The precision-weighted composition (:func:`precision_weighted_composition`, weights
+    omega_t proportional to u_t n_t) has expectation p (1 - e) + Y_0 e given the first read
+    fraction Y_0, e = sum_t omega_t e_t (``start_weight`` e_t, ``(R, T)``), so
+    p = (composition - e Y_0)/(1 - e), as :func:`driftscreen.neutral.fit.relaxation_composition`
+    does with the fit's weights: e capped at its ``MAX_START_WEIGHT``, no taxon below
+    ``MIN_RELAXED_SHARE`` of its composition, rows renormalised. Shape ``(R, K)``.
+    """
+    composition = precision_weighted_composition(counts, depths, theta)
+    v = 1.0 / (1.0 + theta)
+    weights = depths / (1.0 + (depths - 1.0) * v[:, None])                # (R, T)
+    share = np.einsum("rt,rt->r", weights, start_weight) / weights.sum(axis=1)
+    share = np.minimum(share, MAX_START_WEIGHT)[:, None]
+    first = counts[:, 0, :] / depths[0]
+    relaxed = np.maximum((composition - share * first) / (1.0 - share),
+                         MIN_RELAXED_SHARE * composition)
+    return relaxed / relaxed.sum(axis=1, keepdims=True)

@@ -230,7 +230,10 @@ def test_power_at_the_neutral_limit_is_at_most_alpha(neutral_limit_run):
 
 @pytest.fixture(scope="module")
 def separated_run():
-    return power_curve(TINY_SERIES, "logistic", [0.001, 0.3], n_datasets=24, replicates=19,
+    # 39 replicates: with 19 the calibrated combination's p-values move in steps of 0.05,
+    # the level itself, and its power at sigma = 0.3 fell from 0.83 to 0.63 when
+    # stationary_divergence changed its null law (0.88 with 39).
+    return power_curve(TINY_SERIES, "logistic", [0.001, 0.3], n_datasets=24, replicates=39,
                        groupings=20, seed=2)
 
 

@@ -226,6 +226,15 @@ def test_a_conditioned_null_measures_the_divergence_off_the_relaxation_path():
     assert excess(along) < excess(flat) / 3
 
 
+def test_samples_without_reads_stay_in_the_zero_class_off_the_path():
+    # A taxon cut at the first sample has its later values raised by (p - Y_0) e_t: a sample
+    # without reads stays in {N = 0}, so every class frequency is a share of the samples.
+    counts = np.array([0, 0, 2, 0, 6])[None, :, None]
+    shifted = np.array([0.05, 0.2, 0.3, 0.5, 0.6])[None, :, None]
+    observed = observed_class_frequencies(counts, shifted, np.array([[[0.1, 0.4]]]))
+    np.testing.assert_allclose(observed[0, 0], np.array([3, 0, 1, 1]) / 5)
+
+
 def test_depth_bins_cover_all_samples_and_respect_the_bin_limit():
     depths = varying_depths(200, seed=1)
     representative, weight = depth_bins(depths, 8)

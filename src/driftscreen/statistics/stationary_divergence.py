@@ -266,10 +266,12 @@ def observed_class_frequencies(counts: np.ndarray, relative: np.ndarray,
                                edges: np.ndarray) -> np.ndarray:
     """Fraction of samples in {N = 0}, (0, q_1], ..., (q_{M-1}, 1], shape ``(R, K, M+1)``.
 
-    Built from the survival counts S_0 = #{N > 0} and S_j = #{Y > q_j}, Y the read
-    fractions ``relative`` (N/n, or their values off the relaxation path, :func:`off_path`).
+    Built from the survival counts S_0 = #{N > 0} and S_j = #{N > 0, Y > q_j}, Y the read
+    fractions ``relative`` (N/n, or their values off the relaxation path, :func:`off_path`,
+    which can be positive where a taxon has no read: such a sample stays in {N = 0}).
     """
     n_samples = counts.shape[1]
+    relative = np.where(counts > 0, relative, 0.0)
     survival = [np.count_nonzero(counts, axis=1)]
     for j in range(edges.shape[-1]):
         survival.append(np.count_nonzero(relative > edges[:, None, :, j], axis=1))

@@ -136,7 +136,9 @@ class StationaryDivergence:
     methods: ClassVar[str] = (
         "the Kullback-Leibler divergence of each taxon's abundance distribution from its "
         "stationary neutral (beta-binomial) law, summed over taxa, rare taxa pooled into "
-        "groups (after Fisher & Mehta 2014, PNAS 111:13111)")
+        "groups (after Fisher & Mehta 2014, PNAS 111:13111), for time series conditioned "
+        "on their first sample with the later abundances taken off their neutral relaxation "
+        "path from it")
     #: How to read its diagnostics ({abundance_classes}: classes of the report).
     how_to_read: ClassVar[str] = (
         "p: share of the metacommunity; zero obs/exp: samples "

@@ -203,8 +203,9 @@ class StationaryDivergence:
         """Per taxon (or pool of rare taxa): p, zero fractions, KL, contribution, direction.
 
         ``taxon`` is the column index in ``counts`` of the taxon, or of the most abundant
-        member of a pool of rare taxa (``members`` > 1); ``p`` is the precision-weighted
-        composition the statistic uses, ``kl_divergence`` the plug-in KL of the classes,
+        member of a pool of rare taxa (``members`` > 1); ``p`` is the composition the
+        statistic uses (precision-weighted; for a series conditioned on its first sample,
+        the point it relaxes to), ``kl_divergence`` the plug-in KL of the classes,
         ``contribution`` the bias-corrected share of the statistic (the column sums to the
         statistic).
 

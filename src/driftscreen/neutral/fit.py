@@ -304,14 +304,22 @@ def relaxation_composition(counts: np.ndarray, pooled: np.ndarray, design: Desig
     difference can be negative for a taxon declining faster than the fit allows), and rows
     are renormalised.
     """
-    weights = _weights(design)
     lags = design.times - design.times[0]
-    start_weight = np.minimum(np.exp(-rate[:, None] * lags) @ weights, MAX_START_WEIGHT)
     first = counts[:, 0, :] / float(design.depths[0])
-    relaxed = (pooled - start_weight[:, None] * first) / (1.0 - start_weight)[:, None]
-    relaxed = np.maximum(relaxed, MIN_RELAXED_SHARE * pooled)
+    return start_corrected(pooled, first, np.exp(-rate[:, None] * lags) @ _weights(design))
+
+
+def start_corrected(composition: np.ndarray, first: np.ndarray, start_weight: np.ndarray
+                    ) -> np.ndarray:
+    """(composition - e Y_0) / (1 - e): a mean composition ``(R, K)`` with expectation
+    p (1 - e) + Y_0 e, for first read fractions Y_0 ``(R, K)`` and start weights e ``(R,)``,
+    corrected to p. e is capped at :data:`MAX_START_WEIGHT`, no taxon falls below
+    :data:`MIN_RELAXED_SHARE` of its composition, and rows are renormalised."""
+    start_weight = np.minimum(start_weight, MAX_START_WEIGHT)
+    relaxed = (composition - start_weight[:, None] * first) / (1.0 - start_weight)[:, None]
+    relaxed = np.maximum(relaxed, MIN_RELAXED_SHARE * composition)
     totals = relaxed.sum(axis=1, keepdims=True)
-    return np.where(totals > 0, relaxed / np.where(totals > 0, totals, 1.0), pooled)
+    return np.where(totals > 0, relaxed / np.where(totals > 0, totals, 1.0), composition)
 
 
 def fit(counts: np.ndarray, design: Design, options: NullOptions = NullOptions()

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from driftscreen.dataset import Design
-from driftscreen.neutral.fit import MAX_START_WEIGHT, MIN_RELAXED_SHARE
+from driftscreen.neutral.fit import start_corrected
 
 
 def precision_weighted_composition(counts: np.ndarray, depths: np.ndarray,
@@ -38,17 +38,12 @@ def path_composition(counts: np.ndarray, depths: np.ndarray, theta: np.ndarray,
 
     The precision-weighted composition (:func:`precision_weighted_composition`, weights
     omega_t proportional to u_t n_t) has expectation p (1 - e) + Y_0 e given the first read
-    fraction Y_0, e = sum_t omega_t e_t (``start_weight`` e_t, ``(R, T)``), so
-    p = (composition - e Y_0)/(1 - e), as :func:`driftscreen.neutral.fit.relaxation_composition`
-    does with the fit's weights: e capped at its ``MAX_START_WEIGHT``, no taxon below
-    ``MIN_RELAXED_SHARE`` of its composition, rows renormalised. Shape ``(R, K)``.
+    fraction Y_0, e = sum_t omega_t e_t (``start_weight`` e_t, ``(R, T)``), and is corrected
+    to p as the fit corrects its own (:func:`driftscreen.neutral.fit.start_corrected`).
+    Shape ``(R, K)``.
     """
-    composition = precision_weighted_composition(counts, depths, theta)
     v = 1.0 / (1.0 + theta)
     weights = depths / (1.0 + (depths - 1.0) * v[:, None])                # (R, T)
     share = np.einsum("rt,rt->r", weights, start_weight) / weights.sum(axis=1)
-    share = np.minimum(share, MAX_START_WEIGHT)[:, None]
-    first = counts[:, 0, :] / depths[0]
-    relaxed = np.maximum((composition - share * first) / (1.0 - share),
-                         MIN_RELAXED_SHARE * composition)
-    return relaxed / relaxed.sum(axis=1, keepdims=True)
+    return start_corrected(precision_weighted_composition(counts, depths, theta),
+                           counts[:, 0, :] / depths[0], share)

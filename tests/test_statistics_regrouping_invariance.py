@@ -188,16 +188,3 @@ def test_diagnose_lists_groupings():
     assert value == pytest.approx(np.average((log_volatility - centre) ** 2,
                                              weights=table["weight"]))
     assert table["weight"].between(0, 1).all() and (table["weight"] == 1).any()
-
-
-def test_groups_weigh_by_their_share_of_the_diffusion_regime():
-    # Deep samples: every group's reads weight is 1, so its weight is f_G alone, which is
-    # 1 in the diffusion regime and small for a group of theta P_G << 1.
-    design = daily_design(60, 10 ** 6)
-    counts, fit = neutral_batch(P, 10.0, 0.3, design, 1, seed=4)
-    table = RegroupingInvariance(n_groupings=60).diagnose(counts[0], design,
-                                                         fitted_model(fit, design),
-                                                         np.random.default_rng(5))
-    expected = angular_variance_factor(fit.theta, table["mean_abundance"].to_numpy()[None])[0]
-    assert table["weight"].to_numpy() == pytest.approx(expected)
-    assert table["weight"].min() < 0.5 and table["weight"].max() == 1.0

@@ -35,21 +35,13 @@ Statistic: the weighted variance over groupings of log v_G. For the weighted
 least-squares line of log v_G on the logit of the groups' mean abundance, this variance
 is exactly the residual variance plus slope^2 times the variance of the logit, so it
 counts both a trend of volatility with abundance and scatter around it, with no tuning
-weight between the two. A group's weight is min(1, n_h P_G (1 - P_G) / 5) f_G, n_h the
-harmonic-mean depth and P_G its fitted abundance. The first factor gives full weight where
-the angular transform's sampling variance holds (expected reads n x (1 - x) >= 5 for
-Anscombe's version; design note section 6), less below, smoothly, so no replicate loses
-groups abruptly; groups without reads weigh 0. The factor f_G weighs a group by the share
-of the diffusion regime in its stationary angular variance: a group of small theta P_G
-(or complement) has skewed, mostly near-zero increments, its log v_G is noisy, and its
-expected variance hangs on the fitted theta P_G. Unweighted, such groups made the
-replicates, simulated at a fitted p more uneven than the true one, more spread than the
-data at small theta: in the validation study's generators (B = 99, 896 neutral series of
-six collections, every 2nd or 3rd) the rate at 0.05 was 0.032 pooled and 0.017 at
-theta <= 30 (289 series); weighted by f_G, 0.052 and 0.042, and its power at 0.05 against
-four niche collections of the study (50 datasets each) went from 0.98-1.00 to 1.00.
-Remaining departures from v_G = 1 under neutrality (the OU and Gamma approximations, a
-few per cent) are part of the null distribution, which the parametric bootstrap supplies.
+weight between the two. A group's weight is min(1, n_h P_G (1 - P_G) / 5), n_h the
+harmonic-mean depth and P_G its fitted abundance: full weight where the angular
+transform's sampling variance holds (expected reads n x (1 - x) >= 5 for Anscombe's
+version; design note section 6), less below, smoothly, so no replicate loses groups
+abruptly; groups without reads weigh 0. Remaining departures from v_G = 1 under
+neutrality (the OU and Gamma approximations, a few per cent) are part of the null
+distribution, which the parametric bootstrap supplies.
 
 The groupings are drawn from ``rng`` (size uniform on 1..K-1, then a uniformly random
 subset of that size); the calibration re-creates ``rng`` from one seed for every call,
@@ -147,14 +139,12 @@ class RegroupingInvariance:
         group_reads = (counts.reshape(n_rep * n_samples, n_taxa).astype(np.float64)
                        @ members.astype(np.float64)).reshape(n_rep, n_samples, -1)
         group_p = fit.p @ members
-        factor = angular_variance_factor(fit.theta, group_p)
         volatility = increment_volatility(group_reads, depths, design.intervals, fit.theta,
-                                          fit.rate, factor, fit.noise)
+                                          fit.rate, angular_variance_factor(fit.theta, group_p),
+                                          fit.noise)
         harmonic_depth = 1.0 / np.mean(1.0 / depths)
-        reads_weight = np.minimum(harmonic_depth * group_p * (1.0 - group_p)
-                                  / self.min_group_reads, 1.0)
-        weight = np.where((group_reads.sum(axis=1) > 0) & (volatility > 0),
-                          reads_weight * factor, 0.0)
+        weight = np.minimum(harmonic_depth * group_p * (1.0 - group_p) / self.min_group_reads, 1.0)
+        weight = np.where((group_reads.sum(axis=1) > 0) & (volatility > 0), weight, 0.0)
         return GroupVolatility(members, volatility, group_p, weight)
 
     def diagnose(self, counts: np.ndarray, design: Design, model: NeutralModel,

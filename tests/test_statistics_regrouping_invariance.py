@@ -15,7 +15,8 @@ from driftscreen.statistics.regrouping_invariance import (
     angular_transform,
     angular_variance_factor,
     draw_groupings,
-    expected_increment_variance,
+    expected_innovation_variance,
+    innovation_volatility,
 )
 from test_statistics_synthetic import (
     composition,
@@ -66,17 +67,59 @@ def test_angular_variance_factor_against_numerical_integration(theta, share):
     assert approx == pytest.approx(exact, rel=0.01 + 1.0 / theta)
 
 
-def test_expected_increment_variance_formula():
-    # Source: design note section 6: e = f (1 - exp(-rate dt)) / (2 (theta + 1)) + 1/(4 n_t + 2)
-    # + 1/(4 n_{t+1} + 2); long intervals give twice the stationary f / (4 (theta + 1)).
+def test_expected_innovation_variance_formula():
+    # Source: Ornstein-Uhlenbeck conditional variance s (1 - exp(-2 rate dt)) for a process of
+    # stationary variance s (Gardiner 2009, Stochastic Methods, sec. 3.8.4; common practice),
+    # here s = f / (4 (theta + 1)) (design note section 6), plus Anscombe's 1/(4 n + 2) of the
+    # later sample and exp(-2 rate dt) times that of the earlier one; long intervals give the
+    # stationary variance plus the later sample's sampling part.
     depths = np.array([100.0, 1000.0, 10.0])
     intervals = np.array([0.5, 1e6])
     factor = np.array([[1.0, 0.25]])
-    e = expected_increment_variance(depths, intervals, np.array([9.0]), np.array([0.2]), factor)
+    e = expected_innovation_variance(depths, intervals, np.array([9.0]), np.array([0.2]),
+                                     factor)
     assert e.shape == (1, 2, 2)
-    assert e[0, 0, 0] == pytest.approx((1 - np.exp(-0.1)) / 20 + 1 / 402 + 1 / 4002)
-    assert e[0, 1, 0] == pytest.approx(1 / 20 + 1 / 4002 + 1 / 42)
-    assert e[0, 1, 1] == pytest.approx(0.25 / 20 + 1 / 4002 + 1 / 42)
+    phi = np.exp(-0.1)
+    assert e[0, 0, 0] == pytest.approx((1 - phi**2) / 40 + 1 / 4002 + phi**2 / 402)
+    assert e[0, 1, 0] == pytest.approx(1 / 40 + 1 / 42)
+    assert e[0, 1, 1] == pytest.approx(0.25 / 40 + 1 / 42)
+
+
+def test_innovations_take_out_the_relaxation_of_the_mean():
+    # Source: the neutral mean relaxes as E[x(t) | x0] = p + (x0 - p) exp(-rate t) (design
+    # note section 2; Ornstein-Uhlenbeck conditional mean, Gardiner 2009 sec. 3.8.4). A
+    # noiseless group on exactly that path has zero innovations, whatever its start; its
+    # squared increments are not zero.
+    times = np.arange(30.0)
+    rate, mu = 0.2, 0.6
+    y = mu + (0.1 - mu) * np.exp(-rate * times)
+    depths = np.full(times.size, 1e6)
+    reads = ((np.sin(y) ** 2) * (depths + 0.75) - 0.375)[None, :, None]
+    volatility = innovation_volatility(reads, depths, np.diff(times), np.array([40.0]),
+                                       np.array([rate]), np.array([[1.0]]))
+    assert volatility[0, 0] == pytest.approx(0.0, abs=1e-9)
+    assert np.all(np.isnan(innovation_volatility(reads[:, :2], depths[:2], np.diff(times[:2]),
+                                                 np.array([40.0]), np.array([rate]),
+                                                 np.array([[1.0]]))))
+
+
+def test_a_relaxing_neutral_community_has_unit_volatility():
+    # The same check as below, for replicates started far from the metacommunity (a
+    # disturbed start): the innovations follow the relaxation, so v_G stays ~1.
+    theta, rate = 40.0, 0.3
+    design = daily_design(60, 5000)
+    start = np.roll(P, 7)
+    counts = simulate(NeutralModel(P, theta, rate), design, 200, np.random.default_rng(6),
+                      start=np.broadcast_to(start, (200, P.size)))
+    truth = NullFit(np.broadcast_to(P, (200, P.size)), np.full(200, theta), np.full(200, rate),
+                    np.zeros(200, dtype=bool))
+    groups = STAT.group_volatility(counts, design, truth, np.random.default_rng(1))
+    share = groups.abundance[0]
+    common = theta * share * (1 - share) > 5
+    per_table = groups.volatility[:, common].mean(axis=1)
+    se = per_table.std(ddof=1) / np.sqrt(per_table.size)
+    assert common.sum() >= 10
+    assert abs(per_table.mean() - 1.0) < 5 * se + 0.06
 
 
 def test_groups_have_unit_volatility_under_the_true_neutral_model():
@@ -144,13 +187,17 @@ def test_taxon_specific_volatility_is_far_in_the_neutral_tail(depths):
 
 
 def test_edge_cases_short_series_absent_taxa_and_undefined_designs():
-    design = daily_design(2, np.array([500, 50000]))
+    # Three samples (two innovations, one spent on each group's mean) with absent taxa and
+    # a 100-fold depth range are enough; two samples leave no degree of freedom.
+    design = daily_design(3, np.array([500, 50000, 5000]))
     counts, fit = neutral_batch(P, 40.0, 0.3, design, 5, seed=3)
     counts[:, :, -4:] = 0
     counts[:, :, 0] = design.depths - counts[:, :, 1:].sum(axis=2)
     _, fit = fitted(counts, design)
     values = STAT.compute(counts, design, fit, np.random.default_rng(0))
     assert np.all(np.isfinite(values))
+    pair = daily_design(2, np.array([500, 50000]))
+    assert np.all(np.isnan(STAT.compute(counts[:, :2], pair, fit, np.random.default_rng(0))))
     # Very shallow samples (30 reads): groups are down-weighted, never all dropped.
     shallow = daily_design(40, 30)
     counts, fit = neutral_batch(P, 40.0, 0.3, shallow, 20, seed=3)

@@ -441,16 +441,22 @@ def tie_draws(rng: np.random.Generator, shape: tuple[int, ...], n_replicates: in
     return rng.random(shape), rng.random((n_replicates,) + shape)
 
 
-def occupancy_tested(occupancy: np.ndarray, null: np.ndarray) -> np.ndarray:
+def occupancy_band(null: np.ndarray) -> np.ndarray:
+    """The replicates' :data:`BAND` quantiles of occupancy, ``(2, G)`` from ``(B, M, G)``."""
+    return np.quantile(null[:, OCCUPANCY], BAND, axis=0)
+
+
+def occupancy_tested(occupancy: np.ndarray, band: np.ndarray) -> np.ndarray:
     """Where an occupancy ``(..., G)`` (the data's, or each replicate's) is tested: where the
-    replicates' band (:data:`BAND`) is not one value, or the occupancy lies outside it.
+    replicates' band (:func:`occupancy_band`) is not one value, or the occupancy lies
+    outside it.
 
     A taxon detected in every sample of nearly every replicate, and of the table at hand,
     has no information in its occupancy (its randomised p-value would be a uniform draw);
     the same taxon missing from samples is the clearest departure there is, tested against
     the replicates at a level of at most the replicates' share outside the band.
     """
-    low, high = np.quantile(null[:, OCCUPANCY], BAND, axis=0)
+    low, high = band
     return (low < high) | (occupancy < low) | (occupancy > high)
 
 
@@ -491,8 +497,9 @@ def scan_pvalues(scan: TaxonScan, observed: np.ndarray, null: np.ndarray,
     draws, null_draws = tie_draws(rng, tested.shape, null.shape[0])
     pvalues, sides = two_sided_pvalues(tested, tested_null, draws, tailed)
     loo = leave_one_out(tested_null, null_draws, tailed)
-    pvalues[0] = np.where(occupancy_tested(observed[OCCUPANCY], null), pvalues[0], np.nan)
-    loo[:, 0] = np.where(occupancy_tested(null[:, OCCUPANCY], null), loo[:, 0], np.nan)
+    band = occupancy_band(null)
+    pvalues[0] = np.where(occupancy_tested(observed[OCCUPANCY], band), pvalues[0], np.nan)
+    loo[:, 0] = np.where(occupancy_tested(null[:, OCCUPANCY], band), loo[:, 0], np.nan)
     return pvalues, sides, pooled_pvalues(hmp_statistic(pvalues), hmp_statistic(loo))
 
 
@@ -506,7 +513,7 @@ def scan_table(scan: TaxonScan, counts: np.ndarray, design: Design, observed: np
     """
     observed_effects = effects(observed, scan)
     pvalues, sides, combined = scan_pvalues(scan, observed, null, rng)
-    band = np.quantile(null[:, OCCUPANCY], BAND, axis=0)
+    band = occupancy_band(null)
     mean = scan.units.sums(counts / design.depths[:, None]).mean(axis=0)
     columns: dict[str, np.ndarray] = {
         "taxon": scan.units.lead, "members": scan.units.members, "mean_abundance": mean,

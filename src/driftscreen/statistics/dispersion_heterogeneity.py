@@ -444,8 +444,8 @@ def beta_curve_step(p: np.ndarray, score: np.ndarray, information: np.ndarray
     curved = (alpha > 0) & (gamma > 0)
     alpha, gamma = np.where(curved, alpha, 1.0), np.where(curved, gamma, 1.0)
     peak = alpha / (alpha + gamma)
-    gain = alpha * np.log(peak / p) + gamma * np.log((1.0 - peak) / (1.0 - p))
     with np.errstate(divide="ignore", invalid="ignore"):
+        gain = alpha * np.log(peak / p) + gamma * np.log((1.0 - peak) / (1.0 - p))
         newton = np.clip(np.nan_to_num(score / information), -0.5 * p, 0.5 * (1.0 - p))
     quadratic = newton * score - 0.5 * information * newton**2
     return np.where(curved, peak, p + newton), np.where(curved, gain, quadratic)

@@ -236,11 +236,13 @@ def expected_innovation_variance(depths: np.ndarray, intervals: np.ndarray, thet
     Anscombe's 1/(4 n + 2) at its effective depth n = 1/(g + (1 - g)/n_t)
     (:func:`driftscreen.neutral.model.sampling_variance_factor`; n_t without noise).
     """
-    phi = np.exp(-rate[:, None] * intervals)[..., None]                      # (R, T-1, 1)
-    stationary = factor[:, None, :] / (4.0 * (theta[:, None, None] + 1.0))  # (R, 1, G)
+    kept = np.exp(-2.0 * rate[:, None] * intervals)                           # phi^2, (R, T-1)
     noise = np.zeros_like(theta) if noise is None else noise
-    sampling = (1.0 / (4.0 / sampling_variance_factor(depths, noise) + 2.0))[..., None]
-    return stationary * (1.0 - phi**2) + sampling[:, 1:] + phi**2 * sampling[:, :-1]
+    sampling = 1.0 / (4.0 / sampling_variance_factor(depths, noise) + 2.0)   # (R, T)
+    stationary = factor / (4.0 * (theta[:, None] + 1.0))                     # (R, G)
+    variance = (1.0 - kept)[..., None] * stationary[:, None, :]
+    variance += (sampling[:, 1:] + kept * sampling[:, :-1])[..., None]
+    return variance
 
 
 def innovation_volatility(group_reads: np.ndarray, depths: np.ndarray, intervals: np.ndarray,
@@ -249,17 +251,22 @@ def innovation_volatility(group_reads: np.ndarray, depths: np.ndarray, intervals
     """v_G = sum_t eta_t^2 / e_t / (T - 2) for group reads ``(R, T, G)``, shape ``(R, G)``.
 
     eta_t = y_{t+1} - phi_t y_t - (1 - phi_t) mu_G with mu_G the weighted least-squares
-    mean (weights 1/e_t, :func:`expected_innovation_variance`); NaN if T < 3.
+    mean (weights w_t = 1/e_t, :func:`expected_innovation_variance`); NaN if T < 3. With
+    z_t = y_{t+1} - phi_t y_t and a_t = 1 - phi_t, sum_t w_t eta_t^2 is
+    sum w z^2 - (sum w a z)^2 / sum w a^2, so the sums over t are products with a_t.
     """
     n_rep, n_samples, n_groups = group_reads.shape
     if n_samples < 3:
         return np.full((n_rep, n_groups), np.nan)
     y = angular_transform(group_reads, depths)
-    weight = 1.0 / expected_innovation_variance(depths, intervals, theta, rate, factor, noise)
-    phi = np.exp(-rate[:, None] * intervals)[..., None]
-    step = y[:, 1:] - phi * y[:, :-1]
-    pull = 1.0 - phi
-    mean = ((weight * pull * step).sum(axis=1, keepdims=True)
-            / (weight * pull * pull).sum(axis=1, keepdims=True))
-    innovation = step - pull * mean
-    return (weight * innovation * innovation).sum(axis=1) / (n_samples - 2)
+    weight = expected_innovation_variance(depths, intervals, theta, rate, factor, noise)
+    np.reciprocal(weight, out=weight)
+    phi = np.exp(-rate[:, None] * intervals)                                 # (R, T-1)
+    pull = (1.0 - phi)[:, None, :]                                           # (R, 1, T-1)
+    step = phi[..., None] * y[:, :-1]
+    np.subtract(y[:, 1:], step, out=step)
+    weighted_step = weight * step
+    along = np.matmul(pull, weighted_step)[:, 0]                             # sum w a z
+    across = np.matmul(pull * pull, weight)[:, 0]                            # sum w a^2
+    squares = np.einsum("rtg,rtg->rg", weighted_step, step)                  # sum w z^2
+    return (squares - along * along / across) / (n_samples - 2)

@@ -123,8 +123,9 @@ def test_a_relaxing_neutral_community_has_unit_volatility():
 
 
 def test_groups_have_unit_volatility_under_the_true_neutral_model():
-    # Source: design note section 6: Var(dy) = e_t for every group (Anscombe's sampling part
-    # plus an OU drift part with the group's stationary angular variance). The OU form is
+    # Source: design note sections 6 and 9: Var(eta) = e_t for every group (Anscombe's
+    # sampling parts plus the OU conditional variance with the group's stationary angular
+    # variance). The OU form is
     # an approximation between short and long intervals (the note measured 0.86-0.98 of the
     # classic formula at theta P (1 - P) ~ 1), and the cap at 1 misses the O(1/theta) excess
     # at P ~ 1/2 (2.5% at theta = 40): 6% allowance plus 5 SE (200 replicates, SE from their

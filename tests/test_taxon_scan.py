@@ -23,8 +23,8 @@ from driftscreen.taxon_scan import (MIN_CENTRED, MIN_SHAPE, SMALLEST_RATIO, Taxo
                                     across_datasets, centred_across_units, detection_depths,
                                     detection_probability, expected_occupancy,
                                     leave_one_out, occupancy_band, occupancy_tested,
-                                    pooled_pvalues, randomised_sides, scan_pvalues, scan_units, compared_values,
-                                    tie_draws, two_sided_pvalues, VERSION)
+                                    pooled_pvalues, randomised_sides, scan_pvalues, scan_units,
+                                    compared_values, tie_draws, two_sided_pvalues, VERSION)
 
 RNG_DRAWS = 400_000
 
@@ -242,7 +242,8 @@ def test_occupancy_of_a_taxon_in_every_sample_of_every_replicate_is_tested_only_
     null[:, 0, 2] = 1.0  # detected in every sample of every replicate
     observed = null[7] * 1.01
     observed[0] = np.minimum(observed[0], 1.0)
-    assert occupancy_tested(observed[0], occupancy_band(null)).tolist() == [True, True, False, True, True, True]
+    tested = occupancy_tested(observed[0], occupancy_band(null))
+    assert tested.tolist() == [True, True, False, True, True, True]
     scan = TaxonScan(scan_units(np.full(6, 1 / 6), 100.0), True)
     pvalues, _, combined = scan_pvalues(scan, observed, null, np.random.default_rng(3))
     assert np.isnan(pvalues[0, 2]) and np.isfinite(pvalues[1:, 2]).all()

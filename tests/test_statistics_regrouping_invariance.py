@@ -16,6 +16,7 @@ from driftscreen.statistics.regrouping_invariance import (
     angular_variance_factor,
     draw_groupings,
     expected_innovation_variance,
+    expected_read_weight,
     innovation_volatility,
 )
 from test_statistics_synthetic import (
@@ -65,6 +66,34 @@ def test_angular_variance_factor_against_numerical_integration(theta, share):
     exact = _angular_factor_by_quadrature(theta, share)
     approx = angular_variance_factor(np.array([theta]), np.array([[share]]))[0, 0]
     assert approx == pytest.approx(exact, rel=0.01 + 1.0 / theta)
+
+
+@pytest.mark.parametrize("theta, share, depth", [(10.0, 0.01, 2000.0), (10.0, 0.3, 2000.0),
+                                                 (300.0, 0.001, 20000.0), (40.0, 0.7, 500.0),
+                                                 (30.0, 0.002, 10.0)])
+def test_expected_read_weight_against_beta_expectation(theta, share, depth):
+    # Source: E[min(1, c X (1 - X))] for X ~ Beta(theta P, theta (1 - P)) by numerical
+    # integration against scipy.stats.beta.pdf; c = depth / 5 (Anscombe's transform holds its
+    # variance from n x (1 - x) >= 5 reads, design note section 6). depth 10 is the branch
+    # with c <= 4, where the expectation is c E[X (1 - X)] = c P (1 - P) theta / (theta + 1).
+    law = stats.beta(theta * share, theta * (1.0 - share))
+    scale = depth / 5.0
+    exact = law.expect(lambda x: min(1.0, scale * x * (1.0 - x)), points=[0.5],
+                       epsabs=1e-10, epsrel=1e-8)
+    weight = expected_read_weight(np.array([theta]), np.array([[share]]), scale)[0, 0]
+    assert weight == pytest.approx(exact, rel=1e-6, abs=1e-9)
+
+
+def test_expected_read_weight_limits():
+    # Concentrated law (theta P (1 - P) >> 1): the weight at the mean, min(1, c P (1 - P));
+    # a group mostly absent (theta P << 1) weighs less than at its mean; 0 at P = 0 or 1.
+    theta = np.array([1e7, 10.0])
+    group_p = np.array([[0.001, 0.3, 0.0], [0.002, 0.3, 1.0]])
+    weight = expected_read_weight(theta, group_p, 400.0)
+    assert weight[0, 0] == pytest.approx(400.0 * 0.001 * 0.999, rel=1e-4)
+    assert weight[0, 1] == pytest.approx(1.0, abs=1e-9)
+    assert weight[1, 0] < 0.3 < min(1.0, 400.0 * 0.002 * 0.998)
+    assert weight[0, 2] == weight[1, 2] == 0.0
 
 
 def test_expected_innovation_variance_formula():

@@ -151,6 +151,12 @@ class _SeriesDesign:
         return self.lag_pairs[0]
 
     @property
+    def usable(self) -> np.ndarray:
+        """Indices of the usable samples, in time order."""
+        first, second = self.adjacent
+        return np.concatenate([first[:1], second])
+
+    @property
     def identifiable(self) -> bool:
         """The rate needs at least three usable samples (two adjacent pairs)."""
         return self.adjacent[0].size >= 2
@@ -450,8 +456,8 @@ def _observed_ratios(counts: np.ndarray, p: np.ndarray, design: Design, series: 
     """Q/H and D_l/H (l = 1, 2, ..) of every table, ``(R, 1)`` or, conditioned, ``(R, G)``."""
     depths = design.depths.astype(np.float64)
     proportions = counts / depths[:, None]
-    increments = [_pair_increments(proportions, depths, pairs)[:, None]
-                  for pairs in series.lag_pairs]
+    increments = [total[:, None] for total in
+                  _lag_increments(proportions, depths, series.usable, len(series.lag_pairs))]
     w = _weights(design)
     if series.path is None:
         hetero = (p * (1.0 - p)).sum(axis=1)[:, None]
@@ -497,14 +503,22 @@ def successive_correlation(rate: np.ndarray, gaps: np.ndarray) -> np.ndarray:
     return np.exp(-np.asarray(rate)[..., None] * gaps).mean(axis=-1)
 
 
-def _pair_increments(proportions: np.ndarray, depths: np.ndarray,
-                     pairs: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
-    """Sum over the pairs and taxa of sampling-corrected squared increments, ``(R,)``."""
-    first, second = pairs
-    with np.errstate(divide="ignore", invalid="ignore"):
-        noise = proportions * (1.0 - proportions) / (depths[:, None] - 1.0)
-    squared = (proportions[:, second] - proportions[:, first]) ** 2
-    return np.sum(squared - noise[:, first] - noise[:, second], axis=(1, 2))
+def _lag_increments(proportions: np.ndarray, depths: np.ndarray, usable: np.ndarray,
+                    n_lags: int) -> list[np.ndarray]:
+    """Per lag l = 1 .. n_lags: the sum over the pairs of usable samples l apart, and over
+    the taxa, of sampling-corrected squared increments, ``(R,)`` each.
+
+    The sampling corrections x (1 - x)/(n - 1) are summed over the taxa once per sample,
+    and the pairs at lag l are the slices ``[:-l]`` and ``[l:]`` of the usable samples.
+    """
+    x = proportions[:, usable]
+    noise = np.einsum("rtk,rtk->rt", x, 1.0 - x) / (depths[usable] - 1.0)
+    totals = []
+    for lag in range(1, n_lags + 1):
+        step = x[:, lag:] - x[:, :-lag]
+        totals.append(np.einsum("rtk,rtk->r", step, step)
+                      - noise[:, :-lag].sum(axis=1) - noise[:, lag:].sum(axis=1))
+    return totals
 
 
 def _noise_estimate(ratio_q: np.ndarray, ratios: list[np.ndarray],

@@ -223,6 +223,10 @@ def angular_transform(reads: np.ndarray, depths: np.ndarray) -> np.ndarray:
     return np.arcsin(y, out=y)
 
 
+#: Margin, in standard deviations of a group's abundance law, beyond which its weight is 1.
+CERTAIN_SDS = 12.0
+
+
 def expected_read_weight(theta: np.ndarray, group_p: np.ndarray, scale: float) -> np.ndarray:
     """E[min(1, scale X (1 - X))] for X ~ Beta(theta P, theta (1 - P)), ``(R, G)``.
 
@@ -236,20 +240,27 @@ def expected_read_weight(theta: np.ndarray, group_p: np.ndarray, scale: float) -
 
         E = I_{x2}(a, b) - I_{x1}(a, b) + scale m (1 - I_{x2}(a + 1, b + 1) + I_{x1}(a + 1, b + 1)).
 
-    0 where P is 0 or 1.
+    0 where P is 0 or 1; 1, without evaluating I, where [x1, x2] holds P with a margin of
+    more than :data:`CERTAIN_SDS` standard deviations of X on both sides (the law outside
+    is then far below the float64 resolution of 1).
     """
+    theta = np.broadcast_to(theta[:, None], group_p.shape)
     inside = (group_p > 0) & (group_p < 1)
-    p = np.where(inside, group_p, 0.5)
-    a = theta[:, None] * p
-    b = theta[:, None] * (1.0 - p)
-    moment = p * (1.0 - p) * theta[:, None] / (theta[:, None] + 1.0)
+    moment = group_p * (1.0 - group_p) * theta / (theta + 1.0)
     if scale <= 4.0:
         return np.where(inside, scale * moment, 0.0)
     half_width = 0.5 * np.sqrt(1.0 - 4.0 / scale)
     low, high = 0.5 - half_width, 0.5 + half_width
+    margin = np.minimum(group_p - low, high - group_p)
+    weight = np.where(inside, 1.0, 0.0)
+    spread = np.sqrt(np.where(inside, moment, 0.0) / theta)
+    uncertain = inside & (margin <= CERTAIN_SDS * spread)
+    share, m = group_p[uncertain], moment[uncertain]
+    a, b = theta[uncertain] * share, theta[uncertain] * (1.0 - share)
     within = special.betainc(a, b, high) - special.betainc(a, b, low)
     outside = 1.0 - special.betainc(a + 1.0, b + 1.0, high) + special.betainc(a + 1.0, b + 1.0, low)
-    return np.where(inside, np.clip(within + scale * moment * outside, 0.0, 1.0), 0.0)
+    weight[uncertain] = np.clip(within + scale * m * outside, 0.0, 1.0)
+    return weight
 
 
 def angular_variance_factor(theta: np.ndarray, group_p: np.ndarray) -> np.ndarray:

@@ -7,9 +7,11 @@ per dataset and whether the two runs wrote byte-identical results.tsv. Worker pr
 use one BLAS thread each, so the speedup measures the parallel layout on a 2-core machine.
 With a third argument, an interpreter that has another driftscreen version installed (e.g.
 the previous release in its own venv), the same screen is also timed there with --jobs 2,
-and the ratio of the two wall times is printed, both measured in the same run.
+in ROUNDS rounds (default 3) that alternate this version and the baseline, and the ratio of
+each round and their median are printed: on a shared machine the load drifts within
+minutes, and alternating rounds see the same drift.
 
-Usage: python bench/bench_screen.py [N_DATASETS] [REPLICATES] [BASELINE_PYTHON]
+Usage: python bench/bench_screen.py [N_DATASETS] [REPLICATES] [BASELINE_PYTHON] [ROUNDS]
 """
 
 from __future__ import annotations
@@ -20,6 +22,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 os.environ.setdefault("OMP_NUM_THREADS", "1")
 os.environ.setdefault("MKL_NUM_THREADS", "1")
 
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -66,7 +69,8 @@ def baseline_wall(python: str, counts: Path, metadata: Path, out: Path,
     return float(output.split("WALL")[-1])
 
 
-def main(n_datasets: int, replicates: int, baseline: str | None = None) -> None:
+def main(n_datasets: int, replicates: int, baseline: str | None = None,
+         rounds: int = 3) -> None:
     with tempfile.TemporaryDirectory() as temporary:
         folder = Path(temporary)
         counts, metadata = write_inputs(folder, n_datasets)
@@ -84,12 +88,21 @@ def main(n_datasets: int, replicates: int, baseline: str | None = None) -> None:
                 == (folder / "jobs2" / "results.tsv").read_bytes())
         print(f"results.tsv identical: {same}")
         if baseline:
-            other = baseline_wall(baseline, counts, metadata, folder / "baseline", replicates)
-            print(f"baseline ({baseline}) --jobs 2: {other:8.1f} s; this version / "
-                  f"baseline: {seconds[2] / other:.2f}")
+            ratios = []
+            for round_ in range(1, rounds + 1):
+                this = seconds[2] if round_ == 1 else timed_screen(
+                    counts, metadata, folder / f"this{round_}", replicates, 2)
+                other = baseline_wall(baseline, counts, metadata, folder / f"baseline{round_}",
+                                      replicates)
+                ratios.append(this / other)
+                print(f"round {round_}: this version --jobs 2 {this:8.1f} s, baseline "
+                      f"({baseline}) {other:8.1f} s; ratio {ratios[-1]:.2f}")
+            print(f"this version / baseline, median of {rounds} alternating rounds: "
+                  f"{statistics.median(ratios):.2f} (range {min(ratios):.2f} - {max(ratios):.2f})")
 
 
 if __name__ == "__main__":
     main(int(sys.argv[1]) if len(sys.argv) > 1 else 100,
          int(sys.argv[2]) if len(sys.argv) > 2 else 199,
-         sys.argv[3] if len(sys.argv) > 3 else None)
+         sys.argv[3] if len(sys.argv) > 3 else None,
+         int(sys.argv[4]) if len(sys.argv) > 4 else 3)

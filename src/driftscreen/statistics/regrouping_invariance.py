@@ -234,11 +234,11 @@ def expected_read_weight(theta: np.ndarray, group_p: np.ndarray, scale: float) -
     which the expected reads n_h X (1 - X) reach ``min_group_reads``, counted in part below.
     Where scale X (1 - X) <= 1 throughout (scale <= 4) it is scale E[X (1 - X)]; otherwise
     X (1 - X) >= 1/scale on [x1, x2], x1,2 = (1 -+ sqrt(1 - 4/scale))/2, and with
-    E[X (1 - X); X < x] = m I_x(theta P + 1, theta (1 - P) + 1), m = E[X (1 - X)] =
-    P (1 - P) theta/(theta + 1) (the Beta law's moments, e.g. Johnson, Kotz & Balakrishnan
-    1995, *Continuous Univariate Distributions* 2, ch. 25),
+    a = theta P, b = theta (1 - P), E[X (1 - X); X < x] = m I_x(a + 1, b + 1) with
+    m = E[X (1 - X)] = P (1 - P) theta/(theta + 1) (the Beta law's moments; Johnson, Kotz &
+    Balakrishnan 1995, *Continuous Univariate Distributions* 2, ch. 25, cited from memory):
 
-        E = I_{x2}(a, b) - I_{x1}(a, b) + scale m (1 - I_{x2}(a + 1, b + 1) + I_{x1}(a + 1, b + 1)).
+        E = I_x2(a, b) - I_x1(a, b) + scale m (1 - I_x2(a + 1, b + 1) + I_x1(a + 1, b + 1)).
 
     0 where P is 0 or 1; 1, without evaluating I, where [x1, x2] holds P with a margin of
     more than :data:`CERTAIN_SDS` standard deviations of X on both sides (the law outside
@@ -258,7 +258,8 @@ def expected_read_weight(theta: np.ndarray, group_p: np.ndarray, scale: float) -
     share, m = group_p[uncertain], moment[uncertain]
     a, b = theta[uncertain] * share, theta[uncertain] * (1.0 - share)
     within = special.betainc(a, b, high) - special.betainc(a, b, low)
-    outside = 1.0 - special.betainc(a + 1.0, b + 1.0, high) + special.betainc(a + 1.0, b + 1.0, low)
+    outside = (1.0 - special.betainc(a + 1.0, b + 1.0, high)
+               + special.betainc(a + 1.0, b + 1.0, low))
     weight[uncertain] = np.clip(within + scale * m * outside, 0.0, 1.0)
     return weight
 
